@@ -1,0 +1,35 @@
+# Quick start: `make demo` and `make test` work on a fresh machine with Python >= 3.11 and make.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+OUT    ?= demo-output
+
+.PHONY: demo test bench lint table clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+$(STAMP): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install --quiet -e ".[test,cluster]"
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/python scripts/demo.py --out $(OUT)
+
+test: $(STAMP)
+	$(BIN)/python -m pytest -n 2 -q
+
+lint: $(STAMP)
+	$(BIN)/ruff check ringsearch tests scripts
+
+bench: $(STAMP)
+	$(BIN)/python scripts/bench_all.py
+
+# Regenerate the shipped QNM table from our own Leaver solver (slow; not needed to use the package).
+table: $(STAMP)
+	$(BIN)/python scripts/make_qnm_table.py
+
+clean:
+	rm -rf $(VENV) $(OUT) .pytest_cache

@@ -1,0 +1,5 @@
+"""Allow ``python -m ringsearch``."""
+
+from ringsearch.cli import main
+
+raise SystemExit(main())

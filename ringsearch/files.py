@@ -1,0 +1,74 @@
+"""Atomic output: files and folders appear whole or not at all.
+
+Every writer in ringsearch goes through these helpers, so an interrupted run
+never leaves a half-written table, figure or output folder behind.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import shutil
+import tempfile
+from collections.abc import Iterator
+from pathlib import Path
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
+    """Yield a temporary path next to ``path``; rename it onto ``path`` on success.
+
+    On an exception the temporary file is removed and ``path`` is untouched.
+
+    Examples
+    --------
+    >>> import pandas as pd, tempfile, pathlib
+    >>> out = pathlib.Path(tempfile.mkdtemp()) / "t.csv"
+    >>> with atomic_path(out) as tmp:
+    ...     pd.DataFrame({"a": [1]}).to_csv(tmp, index=False)
+    >>> out.exists()
+    True
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    os.close(fd)
+    tmp = Path(tmp)
+    try:
+        yield tmp
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+
+
+def write_text(path: str | os.PathLike, text: str) -> Path:
+    """Write ``text`` to ``path`` atomically and return the path."""
+    with atomic_path(path) as tmp:
+        tmp.write_text(text)
+    return Path(path)
+
+
+@contextlib.contextmanager
+def staged_directory(out: str | os.PathLike) -> Iterator[Path]:
+    """Build an output folder in a hidden sibling, then move it into place.
+
+    ``out`` must not exist or be empty.  On success the staged folder replaces
+    ``out``; on any exception it is deleted, so ``out`` never holds partial
+    results.
+    """
+    out = Path(out)
+    if out.exists() and any(out.iterdir()):
+        from ringsearch.errors import InputError
+
+        raise InputError(f"output folder {out} already exists and is not empty.")
+    out.parent.mkdir(parents=True, exist_ok=True)
+    stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
+    try:
+        yield stage
+        if out.exists():
+            out.rmdir()
+        os.replace(stage, out)
+    except BaseException:
+        shutil.rmtree(stage, ignore_errors=True)
+        raise
