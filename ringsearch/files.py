@@ -34,12 +34,20 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
     tmp = Path(tmp)
+    # mkstemp creates 0600; give the final file the usual permissions (0666 less umask)
+    os.chmod(tmp, 0o666 & ~_umask())
     try:
         yield tmp
         os.replace(tmp, path)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def write_text(path: str | os.PathLike, text: str) -> Path:
@@ -64,6 +72,7 @@ def staged_directory(out: str | os.PathLike) -> Iterator[Path]:
         raise InputError(f"output folder {out} already exists and is not empty.")
     out.parent.mkdir(parents=True, exist_ok=True)
     stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
+    os.chmod(stage, 0o777 & ~_umask())
     try:
         yield stage
         if out.exists():

@@ -65,11 +65,11 @@ def figure(**kwargs: Any):
 
 def save_figure(fig, path) -> None:
     """Save a figure atomically (PNG or PDF by suffix) and close it."""
+    from pathlib import Path
+
     import matplotlib.pyplot as plt
 
     from ringsearch.files import atomic_path
-
-    from pathlib import Path
 
     path = Path(path)
     with atomic_path(path) as tmp:
