@@ -1,0 +1,188 @@
+"""``ringsearch analyse``: overtone analysis of one candidate ringdown.
+
+Thin wrapper over :func:`ringsearch.analysis.pipeline.analyse_candidate`:
+parses the options, finds the start time (``--gps`` or a search output folder),
+runs the analysis into ``--out`` and prints a short summary.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+
+from ringsearch.errors import InputError
+
+_EPILOG = """\
+examples:
+  ringsearch analyse H-H1_LOSC_4_V2-1126259446-32.hdf5 --gps 1126259462.423 --out gw150914
+      N = 0, 1, 2 overtones in H1 data, ringdown starting at the given GPS time
+  ringsearch analyse H1.hdf5 L1.hdf5 --gps 1126259462.423 --shift L1=-0.007 --out cand
+      two detectors with common (mass, spin) and their own amplitudes; L1's
+      segment starts 7 ms earlier (its arrival-time offset)
+  ringsearch analyse H1.hdf5 L1.hdf5 --gps 1126259462.423 --sky 1.95,-1.27 --out coh
+      coherent network: common h+/hx amplitudes through each detector's antenna
+      pattern at RA 1.95 rad, Dec -1.27 rad; start times shifted by the delays
+  ringsearch analyse H1.hdf5 --from-search search-out --trigger 3 --out cand3
+      start time taken from row 3 of search-out/triggers.parquet (default: loudest)
+
+outputs in --out: summary.json (supported_overtones, log10_bayes {"N:N-1": x},
+mass and spin {median, lo90, hi90} for the supported N, warnings, priors),
+evidence.csv, evidence_vs_t0.csv, posterior.parquet (grid posterior for each N),
+start_time_scan.parquet/.csv (amplitudes against t0), varpro.csv and
+varpro_starts.csv (free-parameter fits and their starting points), and the
+plots posterior.png, bayes_factors.png, start_time_scan.png.
+
+Bayes factors depend on the amplitude prior width: by default the amplitude at
+which the fundamental mode at the box centre has SNR max(10, 2 x the best
+single-mode SNR on the grid) (10 is --amp-prior-snr), or a fixed strain with
+--amp-prior; summary.json records the width used.  An overtone is "supported" when adding it raises
+log10 of the evidence by more than --threshold (default 0.5).
+"""
+
+
+def _range(name: str, text: str) -> tuple[float, float]:
+    try:
+        lo, hi = (float(x) for x in text.split(":"))
+    except ValueError:
+        raise InputError(f"{name} {text!r} is not of the form LO:HI.") from None
+    if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+        raise InputError(f"{name} {text!r} must have finite LO < HI.")
+    return lo, hi
+
+
+def _grid(text: str) -> tuple[int, int]:
+    try:
+        a, b = (int(x) for x in text.split(","))
+    except ValueError:
+        raise InputError(f"--grid {text!r} is not of the form NMASS,NSPIN.") from None
+    if a < 3 or b < 3 or a * b > 250_000:
+        raise InputError(f"--grid {text!r} needs 3 to 500 points per axis.")
+    return a, b
+
+
+def _offsets(text: str) -> list[float]:
+    try:
+        vals = [float(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        raise InputError(f"--t0-offsets {text!r} is not a comma-separated list of ms.") from None
+    if not vals or not all(math.isfinite(v) for v in vals):
+        raise InputError(f"--t0-offsets {text!r} must list finite numbers of ms.")
+    return vals
+
+
+def _shifts(items: list[str] | None) -> dict[str, float]:
+    out: dict[str, float] = {}
+    for it in items or []:
+        try:
+            det, val = it.split("=")
+            out[det.strip()] = float(val)
+        except ValueError:
+            raise InputError(f"--shift {it!r} is not of the form DET=SECONDS.") from None
+        if not math.isfinite(out[det.strip()]) or abs(out[det.strip()]) > 0.1:
+            raise InputError(f"--shift {it!r} must be a finite delay under 0.1 s.")
+    return out
+
+
+def _sky(text: str | None) -> tuple[float, float] | None:
+    if text is None:
+        return None
+    try:
+        ra, dec = (float(x) for x in text.split(","))
+    except ValueError:
+        raise InputError(f"--sky {text!r} is not of the form RA,DEC (radians).") from None
+    return ra, dec
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "analyse",
+        help="overtone analysis of a candidate: evidence for N overtones, remnant mass/spin",
+        description=(
+            "Analyse a candidate ringdown: noise-weighted time-domain fits that exclude "
+            "the data before the start time exactly, the (mass, spin) posterior with the "
+            "mode amplitudes marginalised, the evidence and Bayes factors for 0..N "
+            "overtones, fits against start time and free-frequency fits, with warnings "
+            "when the numbers are not to be trusted."),
+        epilog=_EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("files", nargs="+", metavar="FILE", help="strain files (one or more detectors)")
+    src = p.add_mutually_exclusive_group(required=True)
+    src.add_argument("--gps", type=float, metavar="T", help="ringdown start time (GPS s)")
+    src.add_argument("--from-search", metavar="DIR",
+                     help="search output folder; the start time comes from its triggers")
+    p.add_argument("--trigger", type=int, metavar="ID",
+                   help="row of DIR/triggers.parquet (0-based; default: the loudest)")
+    p.add_argument("--out", required=True, metavar="DIR", help="output folder (new or empty)")
+    p.add_argument("--max-overtones", type=int, default=2, metavar="N",
+                   help="largest overtone count compared (default 2)")
+    p.add_argument("--mass", default="30:150", metavar="LO:HI",
+                   help="detector-frame mass box in solar masses (default 30:150)")
+    p.add_argument("--spin", default="0:0.95", metavar="LO:HI",
+                   help="spin box (default 0:0.95)")
+    p.add_argument("--grid", default="40,40", metavar="NMASS,NSPIN",
+                   help="posterior grid at the start time (default 40,40)")
+    p.add_argument("--duration", type=float, metavar="S",
+                   help="segment length in s (default 10 damping times of the slowest mode)")
+    p.add_argument("--f-low", type=float, default=20.0, metavar="HZ",
+                   help="lower band edge in Hz (default 20)")
+    p.add_argument("--f-high", type=float, metavar="HZ",
+                   help="upper band edge in Hz (default 0.8 x Nyquist)")
+    p.add_argument("--t0-offsets", default="-2,0,2,4,6,8,10", metavar="MS,...",
+                   help="start times of the scan, in ms after T (default -2,0,...,10); "
+                        "write --t0-offsets=-4,0,4 when the list starts with a minus sign")
+    p.add_argument("--amp-prior", type=float, metavar="STRAIN",
+                   help="width of the Gaussian prior on each amplitude, in strain")
+    p.add_argument("--amp-prior-snr", type=float, default=10.0, metavar="SNR",
+                   help="smallest default prior width, as an SNR of the fundamental mode "
+                        "(default 10)")
+    p.add_argument("--threshold", type=float, default=0.5, metavar="LOG10B",
+                   help="log10 Bayes factor an added overtone must exceed (default 0.5)")
+    p.add_argument("--shift", action="append", metavar="DET=SECONDS",
+                   help="start-time offset of a detector (repeatable), e.g. L1=-0.007")
+    p.add_argument("--sky", metavar="RA,DEC",
+                   help="sky position in radians: coherent network through antenna patterns, "
+                        "and start-time shifts from the geocentre delays")
+    p.add_argument("--no-varpro", action="store_true", help="skip the free-frequency fits")
+    p.add_argument("--seed", type=int, default=0, help="seed for VARPRO starting points")
+    p.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from ringsearch.analysis.pipeline import analyse_candidate, candidate_from_search
+
+    if args.trigger is not None and args.from_search is None:
+        raise InputError("--trigger needs --from-search DIR.")
+    if args.gps is not None:
+        if not math.isfinite(args.gps):
+            raise InputError(f"--gps {args.gps} is not a finite GPS time.")
+        gps = float(args.gps)
+    else:
+        gps = candidate_from_search(args.from_search, args.trigger)["gps"]
+    if args.max_overtones < 0 or args.max_overtones > 5:
+        raise InputError(f"--max-overtones {args.max_overtones} must be between 0 and 5.")
+    if args.duration is not None and not (0 < args.duration <= 2.0):
+        raise InputError(f"--duration {args.duration} must be between 0 and 2 s.")
+    if args.amp_prior is not None and not (args.amp_prior > 0 and math.isfinite(args.amp_prior)):
+        raise InputError(f"--amp-prior {args.amp_prior} must be a positive strain.")
+    if not (args.amp_prior_snr > 0 and math.isfinite(args.amp_prior_snr)):
+        raise InputError(f"--amp-prior-snr {args.amp_prior_snr} must be positive.")
+    summary = analyse_candidate(
+        args.files, gps, out=args.out, max_overtones=args.max_overtones,
+        mass_range=_range("--mass", args.mass), spin_range=_range("--spin", args.spin),
+        duration=args.duration, f_low=args.f_low, f_high=args.f_high, grid=_grid(args.grid),
+        t0_offsets_ms=_offsets(args.t0_offsets), amp_sigma=args.amp_prior,
+        amp_prior_snr=args.amp_prior_snr, threshold=args.threshold,
+        time_shifts=_shifts(args.shift), run_varpro=not args.no_varpro, seed=args.seed,
+        progress=sys.stderr.isatty(), sky=_sky(args.sky))
+    b = ", ".join(f"{k}: {v:+.2f}" for k, v in summary["log10_bayes"].items())
+    m, s = summary["mass"], summary["spin"]
+    print(f"start time {gps:.4f}: supported overtones N = {summary['supported_overtones']} "
+          f"(log10 Bayes factors {b or 'none'})")
+    print(f"mass {m['median']:.1f} [{m['lo90']:.1f}, {m['hi90']:.1f}] Msun, spin "
+          f"{s['median']:.2f} [{s['lo90']:.2f}, {s['hi90']:.2f}] (90%, detector frame)")
+    for w in summary["warnings"]:
+        print(f"warning: {w}")
+    print(f"wrote {args.out}")
+    return 0
