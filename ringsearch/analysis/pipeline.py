@@ -30,7 +30,7 @@ import pandas as pd
 
 from ringsearch.analysis.fits import DetectorSeries, start_time_scan
 from ringsearch.analysis.noise_model import ToeplitzNoise, toeplitz_noise
-from ringsearch.analysis.posterior import kerr_modes, remnant_posterior
+from ringsearch.analysis.posterior import kerr22_spin_range, kerr_modes, remnant_posterior
 from ringsearch.analysis.varpro import fit_free_modes, fit_kerr
 from ringsearch.errors import InputError
 
@@ -362,8 +362,7 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         raise InputError(f"the mass range {mass_range[0]}:{mass_range[1]} must be positive "
                          "and increasing.")
     if use_table:
-        from ringsearch.physics import qnm
-        slo, shi = qnm.spin_range()
+        slo, shi = kerr22_spin_range()
         if not (slo <= spin_range[0] < spin_range[1] <= shi):
             raise InputError(f"the spin range {spin_range[0]}:{spin_range[1]} is outside the QNM "
                              f"table's range [{slo}, {shi:.4f}] (or empty).")

@@ -61,12 +61,19 @@ def kerr_modes() -> ModeFunc:
     return modes
 
 
+def kerr22_spin_range() -> tuple[float, float]:
+    """Spin range over which the shipped table covers every (2,2,n) mode."""
+    from ringsearch.physics import qnm
+
+    ranges = [qnm.spin_range(2, 2, n) for n in range(8)]
+    return max(r[0] for r in ranges), min(r[1] for r in ranges)
+
+
 def _check_spin_box(spin_range: tuple[float, float], use_table: bool) -> None:
     """Spins must lie in the shipped table's range (or in [0, 1) for a custom provider)."""
     lo, hi = spin_range
     if use_table:
-        from ringsearch.physics import qnm
-        tlo, thi = qnm.spin_range()
+        tlo, thi = kerr22_spin_range()
     else:
         tlo, thi = 0.0, 0.999999
     if not (tlo <= lo < hi <= thi):

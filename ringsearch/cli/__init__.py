@@ -22,6 +22,12 @@ from ringsearch.errors import InputError
 #: Subcommand modules, in the order --help lists them.
 _COMMANDS: list[str] = [
     "spectrum",
+    "search",
+    "campaign",
+    "condition",
+    "noise",
+    "inject",
+    "analyse",
 ]
 
 
@@ -55,6 +61,13 @@ def main(argv: list[str] | None = None) -> int:
         print(f"ringsearch {args.command}: error: file not found: {exc.filename}",
               file=sys.stderr)
         return 2
+    except BrokenPipeError:
+        # the reader (e.g. `| head`) went away: not an error of ours
+        import os
+
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print(f"ringsearch {args.command}: interrupted", file=sys.stderr)
         return 130
