@@ -1,0 +1,309 @@
+"""Assemble a finished campaign's chunk tables into the final results.
+
+Workers report, per injection, its optimal SNRs and, per template overtone
+count, its best matching trigger (if any) with the ranking statistic; and
+per chunk the time-slide background.  The detection threshold is applied
+here, once, over the pooled background of the whole campaign, so the FAR
+threshold uses all the background the campaign produced.
+
+Tables written (all atomically):
+
+``injections.parquet``
+    every drawn injection: the plan's true parameters plus ``snr_opt_<DET>``
+    per detector, ``network_snr``, ``distance_mpc`` (when known), ``f_0_hz``,
+    ``tau_0_s`` (true fundamental mode), ``arrival_gps`` (signal start at
+    the first detector).
+``found.parquet``
+    one row per (injection, template overtone count): ``searched`` (the
+    filter covered the injection's time window in every detector), ``found``
+    (searched and the best statistic in the window at or above the
+    threshold), ``stat``, ``far_per_year``, ``trigger_gps``, recovered
+    ``mass, spin, f_hz, tau_s`` and the errors ``mass_error`` (recovered -
+    true, Msun), ``spin_error``, ``f_error_hz``, ``tau_error_s``, ``gps_error_s``.
+    Recovered values are NaN exactly when ``searched`` is False.  Injections
+    removed by the data conditioning's gates (``gated``; loud signals can
+    trip them) count as missed; other unsearched ones (near data edges) are
+    left out of the efficiency (``counted`` False) and counted in
+    ``summary.json`` (``n_unsearched``).
+``background.parquet``
+    the pooled time-slide background statistic per template overtone count.
+``threshold.csv``, ``efficiency.csv``, ``sigmoid.csv``, ``sensitivity.csv``,
+``summary.json``.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ringsearch import __version__
+from ringsearch.campaign.efficiency import (
+    EFFICIENCY_COLUMNS,
+    bin_edges,
+    efficiency_table,
+    fit_sigmoid,
+    sensitive_volume,
+)
+from ringsearch.files import atomic_path, write_text
+from ringsearch.physics.units import YEAR_S
+
+#: The quantities efficiency is binned in; distance is left out when unknown.
+BINNED = ("network_snr", "distance_mpc")
+
+
+def _read_chunk_tables(out: Path, table: str) -> pd.DataFrame:
+    frames = []
+    for marker in sorted((out / "chunks").glob("*.done")):
+        meta = json.loads(marker.read_text())
+        if table not in meta.get("tables", []):
+            continue
+        frame = pd.read_parquet(out / "chunks" / f"{marker.stem}.{table}.parquet")
+        frame.insert(0, "chunk", int(meta["chunk"]))
+        frames.append(frame)
+    if not frames:
+        return pd.DataFrame()
+    return pd.concat(frames, ignore_index=True)
+
+
+def _write_parquet(frame: pd.DataFrame, path: Path) -> None:
+    with atomic_path(path) as tmp:
+        frame.to_parquet(tmp, index=False)
+
+
+def _write_csv(frame: pd.DataFrame, path: Path) -> None:
+    with atomic_path(path) as tmp:
+        frame.to_csv(tmp, index=False, float_format="%.6g")
+
+
+def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame) -> pd.DataFrame:
+    """Detection threshold on the ranking statistic per template overtone count.
+
+    With ``threshold.snr`` the threshold is that value.  With
+    ``threshold.far_per_year`` it is the smallest statistic whose rate of
+    louder-or-equal background events is at most the target; when the
+    background is too short to reach that rate, it is just above the
+    loudest background event and ``limited`` says so.
+
+    Examples
+    --------
+    >>> cfg = {"threshold": {"snr": 6.0, "far_per_year": None},
+    ...        "search": {"template_overtones": [0]}}
+    >>> thresholds(cfg, pd.DataFrame(), pd.DataFrame())["threshold"].tolist()
+    [6.0]
+    """
+    rows = []
+    th = config["threshold"]
+    for n_tpl in config["search"]["template_overtones"]:
+        if th["snr"] is not None:
+            rows.append({"template_overtones": n_tpl, "threshold": th["snr"],
+                         "kind": "snr", "target_far_per_year": math.nan,
+                         "background_years": math.nan,
+                         "n_background": 0, "limited": False})
+            continue
+        stats = (background.loc[background["template_overtones"] == n_tpl, "stat"]
+                 .to_numpy(float) if len(background) else np.array([]))
+        years = (float(livetime.loc[livetime["template_overtones"] == n_tpl,
+                                    "live_time_s"].sum()) / YEAR_S if len(livetime) else 0.0)
+        allowed = int(math.floor(th["far_per_year"] * years))  # louder events allowed
+        s = np.sort(stats)[::-1]
+        if len(s) == 0:
+            thr, limited = 0.0, True
+        elif allowed >= len(s):
+            thr, limited = float(s[-1]), False
+        elif allowed == 0:
+            thr, limited = float(np.nextafter(s[0], np.inf)), True
+        else:
+            # the (allowed+1)-th loudest must stay below: threshold just above it
+            thr, limited = float(np.nextafter(s[allowed], np.inf)), False
+        rows.append({"template_overtones": n_tpl, "threshold": thr, "kind": "far",
+                     "target_far_per_year": th["far_per_year"], "background_years": years,
+                     "n_background": int(len(s)), "limited": limited})
+    return pd.DataFrame(rows)
+
+
+def far_of(stat: np.ndarray, background: np.ndarray, years: float) -> np.ndarray:
+    """False-alarm rate per year: background events at least as loud, per background year."""
+    if years <= 0:
+        return np.full(len(stat), np.nan)
+    bg = np.sort(background)
+    louder = len(bg) - np.searchsorted(bg, stat, side="left")
+    return louder / years
+
+
+def accuracy_table(found: pd.DataFrame) -> pd.DataFrame:
+    """Median and central 90 % range of recovered-minus-true errors of found injections.
+
+    One row per (injected, template) overtone-count pair and error column.
+
+    Examples
+    --------
+    >>> df = pd.DataFrame({"injected_overtones": 0, "template_overtones": 0,
+    ...                    "found": True, "mass_error": [-1.0, 0.0, 1.0]})
+    >>> accuracy_table(df)["median"].tolist()
+    [0.0]
+    """
+    rows = []
+    errors = [c for c in ("mass_error", "spin_error", "f_error_hz", "tau_error_s",
+                          "gps_error_s") if c in found.columns]
+    hits = found[found["found"].astype(bool)]
+    for (n_inj, n_tpl), g in hits.groupby(["injected_overtones", "template_overtones"]):
+        for c in errors:
+            v = g[c].to_numpy(float)
+            v = v[np.isfinite(v)]
+            if v.size == 0:
+                continue
+            lo, med, hi = np.quantile(v, [0.05, 0.5, 0.95])
+            rows.append({"injected_overtones": int(n_inj), "template_overtones": int(n_tpl),
+                         "error": c, "n_found": int(v.size), "median": med, "lo90": lo,
+                         "hi90": hi})
+    return pd.DataFrame(rows, columns=["injected_overtones", "template_overtones", "error",
+                                       "n_found", "median", "lo90", "hi90"])
+
+
+def _json_safe(value):
+    """Plain JSON: numpy scalars to Python, NaN/inf to null."""
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def assemble(out: str | Path) -> dict:
+    """Build the final tables of a finished campaign folder; returns the summary.
+
+    Examples
+    --------
+    >>> summary = assemble("out/quick")  # doctest: +SKIP
+    """
+    out = Path(out)
+    manifest = json.loads((out / "campaign.json").read_text())
+    config = manifest["config"]
+    plan = pd.read_parquet(out / "plan" / "injections.parquet")
+    per_inj = _read_chunk_tables(out, "injections").drop(columns="chunk", errors="ignore")
+    found = _read_chunk_tables(out, "found").drop(columns="chunk", errors="ignore")
+    background = _read_chunk_tables(out, "background")
+    livetime = _read_chunk_tables(out, "livetime")
+
+    extra = [c for c in per_inj.columns if c != "injection_id" and c not in plan.columns]
+    overlap = [c for c in per_inj.columns if c != "injection_id" and c in plan.columns]
+    injections = plan.merge(per_inj[["injection_id", *extra]], on="injection_id", how="left")
+    for c in overlap:  # worker-derived values (e.g. distance in SNR mode) fill gaps only
+        filled = per_inj.set_index("injection_id")[c]
+        injections[c] = injections[c].fillna(injections["injection_id"].map(filled))
+    injections = injections.sort_values("injection_id").reset_index(drop=True)
+
+    th = thresholds(config, background, livetime)
+    found = found.merge(th[["template_overtones", "threshold"]], on="template_overtones",
+                        how="left")
+    found["found"] = found["searched"].astype(bool) & (found["stat"] >= found["threshold"])
+    if "gated" not in found:
+        found["gated"] = False
+    # gated injections were missed by the search; others outside filtered time are left out
+    found["counted"] = found["searched"].astype(bool) | found["gated"].astype(bool)
+    found["far_per_year"] = np.nan
+    for row in th.itertuples():
+        sel = found["template_overtones"] == row.template_overtones
+        if row.kind == "far" and len(background):
+            bg = background.loc[background["template_overtones"] == row.template_overtones,
+                                "stat"].to_numpy(float)
+            found.loc[sel, "far_per_year"] = far_of(found.loc[sel, "stat"].to_numpy(float),
+                                                    bg, row.background_years)
+    truth_cols = ["injection_id", "injected_overtones", "gps", "mass", "spin", "network_snr"]
+    for c in ("distance_mpc", "f_0_hz", "tau_0_s", "arrival_gps"):
+        if c in injections.columns:
+            truth_cols.append(c)
+    truth = injections[truth_cols].rename(columns={"gps": "true_gps", "mass": "true_mass",
+                                                   "spin": "true_spin", "f_0_hz": "true_f_hz",
+                                                   "tau_0_s": "true_tau_s"})
+    found = found.merge(truth, on="injection_id", how="left")
+    found["mass_error"] = found["mass"] - found["true_mass"]
+    found["spin_error"] = found["spin"] - found["true_spin"]
+    if "true_f_hz" in found:
+        found["f_error_hz"] = found["f_hz"] - found["true_f_hz"]
+        found["tau_error_s"] = found["tau_s"] - found["true_tau_s"]
+    # timing error against the arrival at the first detector (geocentre time if unknown)
+    arrival = found["arrival_gps"] if "arrival_gps" in found else found["true_gps"]
+    found["gps_error_s"] = found["trigger_gps"] - arrival
+    found = found.sort_values(["injection_id", "template_overtones"]).reset_index(drop=True)
+
+    rep = config["report"]
+    searched = found[found["counted"]]
+    tables = []
+    fits = []
+    sens = []
+    for by in BINNED:
+        if by not in searched.columns or not np.isfinite(searched[by].to_numpy(float)).any():
+            continue
+        edges = bin_edges(searched[by].to_numpy(float), rep["snr_bins" if by == "network_snr"
+                                                             else "distance_bins"])
+        table = efficiency_table(searched, by, edges, rep["confidence"], rep["ci_method"])
+        tables.append(table)
+        for (n_inj, n_tpl), g in searched.groupby(["injected_overtones",
+                                                   "template_overtones"]):
+            fit = fit_sigmoid(g[by].to_numpy(float), g["found"].to_numpy(bool))
+            fits.append({"fitted_in": by, "injected_overtones": int(n_inj),
+                         "template_overtones": int(n_tpl),
+                         **{k: fit.get(k, math.nan) for k in
+                            ("x50", "x50_err", "x90", "x90_err")},
+                         "ok": fit["ok"], "message": fit["message"]})
+            if by == "distance_mpc":
+                sub = table[(table["injected_overtones"] == n_inj)
+                            & (table["template_overtones"] == n_tpl)]
+                if len(sub):
+                    sens.append({"injected_overtones": int(n_inj),
+                                 "template_overtones": int(n_tpl), **sensitive_volume(sub)})
+    efficiency = (pd.concat(tables, ignore_index=True) if tables
+                  else pd.DataFrame(columns=EFFICIENCY_COLUMNS))
+    sigmoid = pd.DataFrame(fits)
+    sensitivity = pd.DataFrame(sens)
+    accuracy = accuracy_table(found)
+
+    _write_parquet(injections, out / "injections.parquet")
+    _write_parquet(found, out / "found.parquet")
+    bg_out = background if len(background) else pd.DataFrame(
+        {"chunk": pd.Series(dtype=int), "template_overtones": pd.Series(dtype=int),
+         "stat": pd.Series(dtype=float)})
+    _write_parquet(bg_out, out / "background.parquet")
+    _write_csv(th, out / "threshold.csv")
+    _write_csv(efficiency, out / "efficiency.csv")
+    _write_csv(sigmoid, out / "sigmoid.csv")
+    _write_csv(sensitivity, out / "sensitivity.csv")
+    _write_csv(accuracy, out / "accuracy.csv")
+
+    status_cpu = 0.0
+    status_wall = 0.0
+    for marker in (out / "chunks").glob("*.done"):
+        meta = json.loads(marker.read_text())
+        status_cpu += meta.get("cpu_s", 0.0)
+        status_wall += meta.get("wall_s", 0.0)
+    summary = {
+        "name": manifest["name"],
+        "config_hash": manifest["config_hash"],
+        "ringsearch_version": __version__,
+        "created_utc": manifest["created_utc"],
+        "assembled_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+        "n_injections": int(len(injections)),
+        "n_chunks": int(manifest["n_chunks"]),
+        "chunk_cpu_s": status_cpu,
+        "chunk_wall_s": status_wall,
+        "n_unsearched": int((~found["counted"]).sum()),
+        "n_gated": int(found["gated"].astype(bool).sum()),
+        "ci_method": rep["ci_method"],
+        "confidence": rep["confidence"],
+        "thresholds": th.to_dict("records"),
+        "found_fraction": {f"{int(k[0])}:{int(k[1])}": float(v) for k, v in
+                           found.groupby(["injected_overtones", "template_overtones"])
+                           ["found"].mean().items()},
+    }
+    write_text(out / "summary.json", json.dumps(_json_safe(summary), indent=2))
+    return summary

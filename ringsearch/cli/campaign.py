@@ -1,0 +1,104 @@
+"""``ringsearch campaign run|status|report``: injection campaigns from the command line."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+
+from ringsearch.errors import InputError
+
+_EPILOG = """\
+examples:
+  ringsearch campaign run injections/quick.toml --out out/quick --workers 2
+  ringsearch campaign status out/quick
+  ringsearch campaign report out/quick
+  ringsearch campaign run injections/cluster.toml --out out/big --scheduler tcp://head:8786
+
+Running 'campaign run' again on the same folder resumes: finished chunks are
+kept, and a campaign file that changed since the first run is refused.
+"""
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "campaign",
+        help="inject ringdowns, search for them, and measure efficiency per overtone count",
+        description=(
+            "Injection campaigns: draw ringdowns with a chosen number of overtones from a "
+            "TOML campaign file, inject them into synthetic or recorded strain, search for "
+            "them with templates of each overtone count, and report efficiency curves, "
+            "sensitive distance and parameter recovery."),
+        epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = parser.add_subparsers(dest="action", metavar="ACTION")
+    sub.required = True
+
+    run = sub.add_parser("run", help="run or resume a campaign",
+                         description="Run a campaign, or resume it in an existing folder.",
+                         epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    run.add_argument("config", help="campaign file (TOML)")
+    run.add_argument("--out", required=True, help="output folder (created, or resumed)")
+    where = run.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=int, default=1,
+                       help="local worker processes (default 1)")
+    where.add_argument("--scheduler", metavar="ADDRESS",
+                       help="address of a running Dask scheduler, e.g. tcp://host:8786")
+    run.add_argument("--no-progress", action="store_true", help="hide the progress bar")
+    run.add_argument("--report", action="store_true",
+                     help="also write the figures and report.html when the run finishes")
+    run.set_defaults(func=_run)
+
+    status = sub.add_parser("status", help="how far a campaign is",
+                            description="Print how many chunks and injections are done.")
+    status.add_argument("out", metavar="DIR", help="campaign output folder")
+    status.add_argument("--json", action="store_true", help="print the status as JSON")
+    status.set_defaults(func=_status)
+
+    report = sub.add_parser("report", help="figures, CSV tables and report.html",
+                            description="Write PNG/PDF figures and a self-contained "
+                                        "report.html for a finished campaign.")
+    report.add_argument("out", metavar="DIR", help="campaign output folder")
+    report.set_defaults(func=_report)
+
+
+def _run(args) -> int:
+    from ringsearch.campaign import load_spec, run_campaign
+
+    if args.workers < 1:
+        raise InputError(f"--workers must be at least 1, not {args.workers}.")
+    spec = load_spec(args.config)
+    start = time.perf_counter()
+    status = run_campaign(spec, args.out, workers=args.workers, scheduler=args.scheduler,
+                          progress=not args.no_progress)
+    print(f"campaign '{status['name']}': {status['chunks_done']}/{status['n_chunks']} chunks, "
+          f"{status['injections_done']} injections, {time.perf_counter() - start:.1f} s")
+    print(f"tables in {args.out} (injections.parquet, found.parquet, efficiency.csv)")
+    if args.report:
+        from ringsearch.report import make_report
+
+        print(f"report: {make_report(args.out)}")
+    return 0
+
+
+def _status(args) -> int:
+    from ringsearch.campaign import campaign_status
+
+    status = campaign_status(args.out)
+    if args.json:
+        print(json.dumps(status, indent=2))
+        return 0
+    state = ("finished" if status["assembled"] else
+             "all chunks done, tables not assembled" if status["complete"] else "unfinished")
+    print(f"campaign '{status['name']}' in {args.out}: {state}")
+    print(f"  chunks     {status['chunks_done']} / {status['n_chunks']}")
+    print(f"  injections {status['injections_done']} / {status['n_injections']}")
+    print(f"  CPU time   {status['cpu_s']:.1f} s in finished chunks")
+    return 0
+
+
+def _report(args) -> int:
+    from ringsearch.report import make_report
+
+    path = make_report(args.out)
+    print(f"report: {path}")
+    return 0

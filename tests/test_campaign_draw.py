@@ -1,0 +1,88 @@
+"""Draws and placement: seeded, isotropic, spaced, away from avoided windows."""
+
+from __future__ import annotations
+
+import copy
+
+import numpy as np
+import pytest
+from scipy import stats
+from test_campaign_spec import BASE
+
+from ringsearch.campaign.draw import data_chunks, plan_campaign, sample
+from ringsearch.campaign.spec import spec_from_dict
+from ringsearch.errors import InputError
+
+
+def make(**changes):
+    raw = copy.deepcopy(BASE)
+    for path, value in changes.items():
+        *parents, last = path.split("__")
+        node = raw
+        for p in parents:
+            node = node[p]
+        node[last] = value
+    return spec_from_dict(raw)
+
+
+def test_plan_is_reproducible_and_spaced():
+    spec = make(injections__count=400)
+    chunks_a, inj_a = plan_campaign(spec)
+    chunks_b, inj_b = plan_campaign(spec)
+    assert inj_a.equals(inj_b) and chunks_a.equals(chunks_b)
+    assert len(inj_a) == 400 and chunks_a["n_injections"].sum() == 400
+    t = np.sort(inj_a["gps"].to_numpy())
+    assert np.diff(t).min() >= spec.injections["spacing_s"] - 1e-9
+    # every injection inside its chunk, away from the padded edges
+    merged = inj_a.merge(chunks_a, on="chunk")
+    pad = spec.data["pad_s"]
+    assert ((merged["gps"] >= merged["gps_start"] + pad)
+            & (merged["gps"] <= merged["gps_end"] - pad)).all()
+    # balanced overtone counts
+    assert set(inj_a["injected_overtones"].value_counts()) == {200}
+
+
+def test_isotropic_angles_follow_their_distributions():
+    # Kolmogorov-Smirnov at alpha = 1e-4 per test, four tests: false failure < 4e-4.
+    spec = make(injections__count=3000, data__duration_s=16 * 500)
+    _, inj = plan_campaign(spec)
+    assert stats.kstest(np.sin(inj["dec"]), "uniform", args=(-1, 2)).pvalue > 1e-4
+    assert stats.kstest(np.cos(inj["inclination"]), "uniform", args=(-1, 2)).pvalue > 1e-4
+    assert stats.kstest(inj["ra"], "uniform", args=(0, 2 * np.pi)).pvalue > 1e-4
+    assert stats.kstest(inj["polarization"], "uniform", args=(0, np.pi)).pvalue > 1e-4
+
+
+def test_powerlaw_index_two_is_uniform_in_volume():
+    # x^3 is uniform on [lo^3, hi^3] when p(x) ~ x^2; KS false failure 1e-4.
+    x = sample({"dist": "powerlaw", "low": 100.0, "high": 500.0, "index": 2.0},
+               np.random.default_rng(3), 5000)
+    assert stats.kstest(x**3, "uniform", args=(100.0**3, 500.0**3 - 100.0**3)).pvalue > 1e-4
+
+
+def test_avoided_window_gets_no_injection():
+    window = [1.3e9 + 20.0, 1.3e9 + 26.0]
+    spec = make(injections__count=50, data__avoid=[window], data__duration_s=16 * 10)
+    _, inj = plan_campaign(spec)
+    spacing = spec.injections["spacing_s"]
+    assert not ((inj["gps"] > window[0] - spacing / 2)
+                & (inj["gps"] < window[1] + spacing / 2)).any()
+
+
+def test_too_many_injections_for_the_data():
+    spec = make(injections__count=500, data__duration_s=160.0)
+    with pytest.raises(InputError, match="injections.count"):
+        plan_campaign(spec)
+
+
+def test_file_data_reuse_and_segments():
+    raw = copy.deepcopy(BASE)
+    raw["data"] = {"source": "synthetic", "detectors": ["H1", "L1"], "chunk_s": 16, "pad_s": 2.0}
+    spec = spec_from_dict(raw)
+    # emulate file data by swapping the source after validation
+    spec.config["data"].update({"source": "files", "reuse": 3, "gps_start": None,
+                                "gps_end": None})
+    segs = [[(0.0, 32.0)], [(4.0, 40.0)]]
+    stretches = data_chunks(spec, segs)
+    assert stretches["gps_start"].min() == 4.0 and stretches["gps_end"].max() == 32.0
+    chunks, inj = plan_campaign(spec, segs)
+    assert chunks["round"].max() <= 2 and len(inj) == 20
