@@ -21,6 +21,7 @@ GW150914_GPS = 1126259462.42
 @pytest.mark.parametrize("delay_ms", [3.0, 6.0])
 def test_gw150914_fundamental_posterior_contains_published_remnant(gw150914_files, delay_ms):
     # PRL 116, 061102 (2016): final mass 62 Msun (source frame) at redshift 0.09, spin 0.67,
+    # (values # from memory)
     # so the detector-frame remnant is 62 x 1.09 = 67.6 Msun.  H1 alone (the loudest
     # detector), N = 0, start times 3 and 6 ms after the merger time, 40 x 40 grid.  The
     # 90% region is wide (ringdown SNR ~ 8), so it must contain the published values.
@@ -124,6 +125,12 @@ def test_cli_from_search_folder(synthetic_file, tmp_path):
     (["--gps", "1000000008", "--mass", "90:40"], "--mass"),
     (["--gps", "1000000008", "--trigger", "2"], "--trigger"),
     (["--gps", "1000000008", "--sky", "1.9"], "--sky"),
+    # regressions: these were silently ignored, ran with a NaN threshold, or ended in a
+    # traceback (negative seed; a singular fit for modes shorter than one sample)
+    (["--gps", "1000000008", "--shift", "L1=0.01"], "L1"),
+    (["--gps", "1000000008", "--threshold", "nan"], "threshold"),
+    (["--gps", "1000000008", "--seed", "-1"], "seed"),
+    (["--gps", "1000000008", "--mass", "1e-9:1e-8"], "one sample"),
 ])
 def test_cli_bad_input_exits_2_with_one_sentence(synthetic_file, tmp_path, capsys, extra,
                                                   message):

@@ -20,11 +20,13 @@ def test_json_output_gw150914_like_remnant(capsys):
         assert r["spin"] == 0.69
     r0, r1 = rows
     # Abbott et al. (2016), PRL 116, 221101: ~251 Hz, ~4 ms for the GW150914 remnant
+    # (# from memory)
     assert abs(r0["f_hz"] - 251.0) < 3.0 and abs(r0["tau_s"] - 4.0e-3) < 0.3e-3
     # Berti, Cardoso & Will (2006) PRD 73 064030 fit for (2,2,0), a few per cent:
     # M omega_R = 1.5251 - 1.1568 (1 - chi)^0.1292   # from memory
     assert abs(r0["omega_re"] / (1.5251 - 1.1568 * 0.31 ** 0.1292) - 1) < 0.03
-    # the first overtone is damped about three times faster (Leaver 1985 spectrum)
+    # the first overtone is damped about three times faster (Leaver 1985 spectrum;
+    # # from memory)
     assert 2.5 < r0["tau_s"] / r1["tau_s"] < 3.5
     assert r1["omega_im"] < r0["omega_im"] < 0
 
@@ -62,6 +64,8 @@ def test_plot_file_written(tmp_path, capsys):
         (["--spin", "0.5", "--mode", "2,2,9"], "n=9"),
         (["--spin", "0.5", "--mode", "2;2;0"], "--mode '2;2;0'"),
         (["--spin", "0.5", "--mode", "1,0,0"], "l=1"),
+        (["--spin", "0.5", "--mass", "nan"], "--mass 'nan'"),
+        (["--spin", "0.5", "--plot", "tracks.txt"], "--plot tracks.txt"),  # was a traceback
     ],
 )
 def test_bad_input_exits_2_with_one_sentence(argv, fragment, capsys):

@@ -42,9 +42,17 @@ def test_noise_bad_input(tmp_path, capsys):
     assert main([*base, "--duration", "4", "--psd", "missing.txt"]) == 2
     assert main([*base, "--duration", "4", "--detector", "Hanford"]) == 2
     assert main([*base, "--duration", "4", "--flat-level", "1e-46"]) == 2
+    # regressions: each of these was a traceback or a file with a NaN/absurd start time
+    assert main([*base, "--duration", "4", "--sample-rate", "inf"]) == 2
+    assert main([*base, "--duration", "4", "--gps-start", "nan"]) == 2
+    assert main([*base, "--duration", "4", "--gps-start", "-5"]) == 2
+    assert main([*base, "--duration", "1e9"]) == 2                      # MemoryError before
+    assert main(["noise", "--out", str(tmp_path), "--seed", "1", "--duration", "4"]) == 2
+    assert main(["noise", "--out", str(tmp_path / "x.txt"), "--seed", "1",
+                 "--duration", "4"]) == 2                       # HDF5 bytes in a .txt file
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 4 and all(line.startswith("ringsearch noise: error:") for line in err)
-    assert not out.exists()
+    assert len(err) == 10 and all(line.startswith("ringsearch noise: error:") for line in err)
+    assert not out.exists() and not (tmp_path / "x.txt").exists()
 
 
 def test_condition_writes_plots_and_records(tmp_path, capsys):
@@ -76,11 +84,18 @@ def test_condition_bad_input_leaves_nothing(tmp_path, capsys):
     assert main(["condition", str(tmp_path / "none.hdf5"), "--out", str(out)]) == 2
     assert main(["condition", str(h1), "--out", str(out), "--around", "5"]) == 2
     assert main(["condition", str(h1), "--out", str(out), "--seglen", "32"]) == 2
+    assert main(["condition", str(h1), "--out", str(out), "--seglen", "nan"]) == 2
+    text = tmp_path / "one_column.txt"
+    text.write_text("1e-21\n-2e-21\n" * 8)
+    assert main(["condition", str(text), "--out", str(out), "--detector", "H1",
+                 "--sample-rate", "16", "--gps-start", "nan"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 4
+    assert len(err) == 6
     assert "all detectors need one rate" in err[0]
     assert "does not exist" in err[1]
     assert "--around 5.0 is outside the H1 data" in err[2]
     assert "segment length 32 s" in err[3]
+    assert "seglen nan" in err[4]            # used to blame the whitening filter length
+    assert "gps_start nan" in err[5]         # used to give a series starting at NaN
     assert not out.exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".out")]

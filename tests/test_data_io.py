@@ -267,3 +267,10 @@ def test_write_rejects_bad_masks(tmp_path, sim):
     with pytest.raises(InputError, match="dq_mask has 3 values"):
         write_gwosc_hdf5(sim, tmp_path / "x.hdf5", dq_mask=[1, 2, 3])
     assert not (tmp_path / "x.hdf5").exists()
+    # the reader picks the format by suffix, so HDF5 bytes in x.txt could not be read back
+    with pytest.raises(InputError, match=r"\.hdf5"):
+        write_gwosc_hdf5(sim, tmp_path / "x.txt")
+    (tmp_path / "d.hdf5").mkdir()
+    with pytest.raises(InputError, match="folder"):
+        write_gwosc_hdf5(sim, tmp_path / "d.hdf5")
+    assert not (tmp_path / "x.txt").exists()

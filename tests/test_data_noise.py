@@ -121,3 +121,12 @@ def test_noise_bad_input():
         gaussian_noise("no_such_psd.txt", 1.0, 4096, 1)
     with pytest.raises(InputError, match="level"):
         flat_psd([1.0], level=0.0)
+    # regressions: a NaN or negative start time used to pass silently, an absurd length
+    # ended in a MemoryError, and an empty PSD name was reported as the folder "."
+    for bad in (float("nan"), -1.0, 1e20):
+        with pytest.raises(InputError, match="gps_start"):
+            gaussian_noise("design", 1.0, 4096, 1, gps_start=bad)
+    with pytest.raises(InputError, match="samples"):
+        gaussian_noise("design", 1e9, 4096, 1)
+    with pytest.raises(InputError, match="empty"):
+        gaussian_noise("", 1.0, 4096, 1)

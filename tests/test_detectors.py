@@ -181,6 +181,10 @@ def test_custom_detectors_from_mapping_and_toml(tmp_path):
                                           "xarm_bearing_deg": 0.0, "colour": 1}), "colour"),
     (lambda: Detector("E1", 91.0, 0.0, 0.0, 0.0, 270.0), "91"),
     (lambda: Detector("E1", 40.0, 0.0, 0.0, 0.0, 10.0), "arms"),
+    # a declination beyond the poles (degrees given for radians) or NaN is not a direction
+    (lambda: antenna_pattern("H1", 1.0, 9.0, 0.0, GPS), "declination"),
+    (lambda: time_delay_from_geocentre("L1", 1.0, np.array([0.1, np.nan]), GPS),
+     "declination"),
 ])
 def test_bad_detector_input(call, word):
     with pytest.raises(InputError, match=word):

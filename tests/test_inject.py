@@ -132,6 +132,12 @@ def test_bad_injection_input():
         inject_network([noise, noise], _source(GPS0 + 0.5))
     with pytest.raises(InputError, match="detector name"):
         inject(TimeSeries(np.zeros(8), sample_rate=4096), _source(GPS0))
+    # a signal far from the data: nothing added by default (campaign chunks), an error when
+    # the caller placed it by hand
+    far = _source(GPS0 + 100.0)
+    assert inject(noise, far).value.tobytes() == noise.value.tobytes()
+    with pytest.raises(InputError, match="does not overlap"):
+        inject(noise, far, require_overlap=True)
 
 
 # --------------------------------------------------------------------------- command line
@@ -194,6 +200,11 @@ def test_cli_inject_physical_amplitude_matches_api(sim_files, tmp_path):
     (["--spin", "0.5", "--snr", "10", "--distance", "100"], "exactly one"),
     (["--spin", "0.5", "--snr", "10", "--extra-mode", "3,3:1"], "--extra-mode"),
     (["--spin", "0.5", "--distance", "-4", "--epsilon", "0.01"], "distance"),
+    (["--spin", "0.5", "--distance", "100", "--epsilon", "0.01", "--mass", "nan"], "mass"),
+    # regressions: a --gps outside the data used to write unchanged files and report the SNR
+    # of a signal that was never added; a declination of 9 rad was taken as a direction
+    (["--spin", "0.5", "--snr", "10", "--gps", "5"], "does not overlap"),
+    (["--spin", "0.5", "--snr", "10", "--dec", "9"], "declination"),
 ])
 def test_cli_bad_input_is_one_sentence(sim_files, tmp_path, capsys, extra, word):
     status = main(["inject", str(sim_files[0]), "--out", str(tmp_path / "x"), "--mass", "60",

@@ -216,7 +216,7 @@ def test_redshift_matches_astropy_inversion():
     for d in (10.0, 440.0, 5000.0):
         z = float(z_at_value(Planck18.luminosity_distance, d * u.Mpc))
         assert float(rd.redshift_from_distance(d)) == pytest.approx(z, rel=1e-5)
-    # GW150914: D ~ 440 Mpc, z ~ 0.09 (Abbott et al. 2016, PRL 116, 061102)
+    # GW150914: D ~ 440 Mpc, z ~ 0.09 (Abbott et al. 2016, PRL 116, 061102)  # from memory
     assert float(rd.redshift_from_distance(440.0)) == pytest.approx(0.09, abs=0.01)
     assert rd.detector_frame_mass(rd.source_frame_mass(70.0, 800.0), 800.0) == pytest.approx(70)
     with pytest.raises(InputError, match="distance"):
@@ -241,7 +241,7 @@ def test_kerr_source_frequencies_match_reference_package():
         w = _reference_omega(m.l, m.m, m.n, 0.69) / (68.0 * MSUN_S)
         assert f[k] == pytest.approx(w.real / (2 * np.pi), rel=1e-4), m.label
         assert tau[k] == pytest.approx(-1 / w.imag, rel=1e-4), m.label
-    # GW150914: f ~ 251 Hz, tau ~ 4 ms (Abbott et al. 2016, PRL 116, 221101)
+    # GW150914: f ~ 251 Hz, tau ~ 4 ms (Abbott et al. 2016, PRL 116, 221101)  # from memory
     assert f[0] == pytest.approx(251, abs=10) and tau[0] == pytest.approx(4e-3, abs=0.5e-3)
 
 

@@ -114,6 +114,7 @@ def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 
     >>> data, noises, meta = prepare_detectors(["H-H1_LOSC_4_V2-1126259446-32.hdf5"],
     ...     1126259462.42, 0.1)  # doctest: +SKIP
     """
+    from ringsearch.data.condition import DEFAULT_F_HIGH_FRACTION
     from ringsearch.data.psd import estimate_psd
 
     shifts = dict(time_shifts or {})
@@ -128,7 +129,7 @@ def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 
         if not (t_start <= start and start + duration <= t_end):
             raise InputError(f"the start time {start:.4f} (+{duration:.3f} s) lies outside the "
                              f"{name} data [{t_start:.3f}, {t_end:.3f}] s.")
-        fh = 0.8 * fs / 2 if f_high is None else float(f_high)
+        fh = DEFAULT_F_HIGH_FRACTION * fs / 2 if f_high is None else float(f_high)
         if not 0 < f_low < fh < fs / 2:
             raise InputError(f"the band f_low={f_low}, f_high={fh} Hz must satisfy "
                              f"0 < f_low < f_high < Nyquist ({fs / 2} Hz).")
@@ -160,6 +161,10 @@ def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 
         meta[name] = {"sample_rate_hz": fs, "f_low_hz": f_low, "f_high_hz": fh,
                       "psd_segments": int(getattr(psd, "n_segments", 0)), "time_shift_s": shift,
                       "segment_samples": n}
+    unknown = sorted(set(shifts) - set(meta))
+    if unknown:
+        raise InputError(f"a time shift is given for {unknown[0]}, which is not among the "
+                         f"detectors of the data ({', '.join(meta)}).")
     return out_d, out_n, meta
 
 
@@ -356,6 +361,10 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
     if int(max_overtones) != max_overtones or max_overtones < 0:
         raise InputError(f"max_overtones={max_overtones} must be a whole number >= 0.")
     max_overtones = int(max_overtones)
+    if not math.isfinite(threshold):
+        raise InputError(f"threshold={threshold!r} must be a finite log10 Bayes factor.")
+    if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
+        raise InputError(f"seed={seed!r} must be an integer >= 0.")
     use_table = modes is None
     modes = modes or kerr_modes()
     if not (0 < mass_range[0] < mass_range[1]):

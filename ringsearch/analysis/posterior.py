@@ -563,6 +563,12 @@ def _check_segment_modes(series: DetectorSeries, noise: ToeplitzNoise, f: np.nda
     """Errors and warnings for segments that cannot hold or resolve the grid's modes."""
     dt = 1.0 / noise.sample_rate
     tau_max = float(tau[:, 0].max())
+    tau_min = float(tau[:, 0].min())
+    if tau_min < dt:
+        # its template is (numerically) a single sample: the fits are singular
+        raise InputError(
+            f"the fundamental mode decays within one sample at the grid's low-mass end (tau "
+            f"{tau_min * 1e3:.3g} ms < {dt * 1e3:.3g} ms); raise the lower end of the mass range.")
     if noise.duration < 3.0 * tau_max:
         raise InputError(
             f"the {noise.duration * 1e3:.1f} ms segment is shorter than 3 damping times of the "

@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import math
 import sys
+import textwrap
 
 from ringsearch.errors import InputError
 
@@ -98,7 +99,7 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "analyse",
         help="overtone analysis of a candidate: evidence for N overtones, remnant mass/spin",
-        description=(
+        description=textwrap.fill(
             "Analyse a candidate ringdown: noise-weighted time-domain fits that exclude "
             "the data before the start time exactly, the (mass, spin) posterior with the "
             "mode amplitudes marginalised, the evidence and Bayes factors for 0..N "
@@ -120,9 +121,9 @@ def register(subparsers) -> None:
     p.add_argument("--mass", default="30:150", metavar="LO:HI",
                    help="detector-frame mass box in solar masses (default 30:150)")
     p.add_argument("--spin", default="0:0.95", metavar="LO:HI",
-                   help="spin box (default 0:0.95)")
+                   help="dimensionless spin box (default 0:0.95)")
     p.add_argument("--grid", default="40,40", metavar="NMASS,NSPIN",
-                   help="posterior grid at the start time (default 40,40)")
+                   help="posterior grid points in mass and spin at the start time (default 40,40)")
     p.add_argument("--duration", type=float, metavar="S",
                    help="segment length in s (default 10 damping times of the slowest mode)")
     p.add_argument("--f-low", type=float, default=20.0, metavar="HZ",
@@ -145,7 +146,8 @@ def register(subparsers) -> None:
                    help="sky position in radians: coherent network through antenna patterns, "
                         "and start-time shifts from the geocentre delays")
     p.add_argument("--no-varpro", action="store_true", help="skip the free-frequency fits")
-    p.add_argument("--seed", type=int, default=0, help="seed for VARPRO starting points")
+    p.add_argument("--seed", type=int, default=0,
+                   help="seed (integer >= 0) for the VARPRO starting points (default 0)")
     p.set_defaults(func=run)
 
 

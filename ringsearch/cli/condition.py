@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import textwrap
 
 _EPILOG = """\
 examples:
@@ -23,7 +24,7 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "condition",
         help="whiten, band-limit and gate strain; plot the ASD and whitened data",
-        description=(
+        description=textwrap.fill(
             "Read strain files (GWOSC HDF5, GWF, text), keep the times passing the "
             "data-quality level, estimate each detector's PSD (Welch, median average), "
             "whiten it with a truncated inverse-spectrum filter, gate loud glitches, and "
@@ -55,7 +56,9 @@ def register(subparsers) -> None:
                         "BURST_CAT1..3 (default CBC_CAT2)")
     p.add_argument("--keep-hw-injections", action="store_true",
                    help="do not drop times holding transient hardware injections")
-    p.add_argument("--detector", default=None, help="detector of files that do not say")
+    p.add_argument("--detector", default=None,
+                   help="detector name (e.g. H1) for files that do not record one; it "
+                        "overrides the name a file records")
     p.add_argument("--sample-rate", type=float, default=None, metavar="HZ",
                    help="sample rate of one-column text files")
     p.add_argument("--gps-start", type=float, default=None, metavar="GPS",

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import textwrap
 
 _EPILOG = """\
 examples:
@@ -34,7 +35,7 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "inject",
         help="add a multi-overtone Kerr ringdown or an external waveform to strain files",
-        description=(
+        description=textwrap.fill(
             "Add a simulated black-hole ringdown (Kerr quasinormal modes (2,2,0)..(2,2,N), "
             "optionally (3,3,0), (2,1,0), (4,4,0)) or a user-supplied waveform to the strain "
             "of one or more detectors, each at its own arrival time, and write new strain "
@@ -48,7 +49,8 @@ def register(subparsers) -> None:
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (new or empty)")
     g = p.add_argument_group("source")
     g.add_argument("--mass", type=float, required=True, metavar="MSUN",
-                   help="remnant mass (total mass for --waveform), detector frame")
+                   help="remnant mass in solar masses (total mass for --waveform), detector frame "
+                        "unless --source-frame")
     g.add_argument("--source-frame", action="store_true",
                    help="--mass is in the source frame; redshift it with the distance")
     g.add_argument("--spin", type=float, metavar="CHI", help="remnant spin in [0, 1)")
@@ -61,19 +63,22 @@ def register(subparsers) -> None:
     g.add_argument("--extra-mode", action="append", default=[], metavar="L,M,N:RATIO[:PHASE]",
                    help="add a mode relative to (2,2,0), e.g. 3,3,0:0.1:1.5 (repeatable)")
     g.add_argument("--gps", type=float, required=True, metavar="T",
-                   help="GPS start time of the ringdown at the geocentre")
-    g.add_argument("--ra", type=float, required=True, help="right ascension (rad)")
-    g.add_argument("--dec", type=float, required=True, help="declination (rad)")
-    g.add_argument("--psi", type=float, required=True, help="polarisation angle (rad)")
+                   help="GPS time (s) of the ringdown start at the geocentre; must fall "
+                        "in the data")
+    g.add_argument("--ra", type=float, required=True, help="right ascension in radians, 0 to 2 pi")
+    g.add_argument("--dec", type=float, required=True, help="declination in radians, -pi/2 to pi/2")
+    g.add_argument("--psi", type=float, required=True, help="polarisation angle in radians")
     g.add_argument("--inclination", type=float, default=0.0,
                    help="angle between the spin axis and the line of sight (rad, default 0)")
     g.add_argument("--azimuth", type=float, default=0.0,
                    help="azimuth of the observer around the spin axis (rad, default 0)")
     a = p.add_argument_group("amplitude (one of)")
-    a.add_argument("--distance", type=float, metavar="MPC", help="luminosity distance")
+    a.add_argument("--distance", type=float, metavar="MPC",
+                   help="luminosity distance in Mpc (needs --epsilon for a Kerr ringdown)")
     a.add_argument("--epsilon", type=float, default=None,
                    help="fraction of the mass radiated in (2,2,0) (default 0.01 with --snr)")
-    a.add_argument("--snr", type=float, metavar="RHO", help="target network optimal SNR")
+    a.add_argument("--snr", type=float, metavar="RHO",
+                   help="target network optimal SNR (sets the distance)")
     w = p.add_argument_group("external waveform")
     w.add_argument("--waveform", metavar="FILE",
                    help="time, h_plus, h_cross table (text, .npz or HDF5) instead of a Kerr "
@@ -88,7 +93,8 @@ def register(subparsers) -> None:
     s.add_argument("--psd", default="estimate", metavar="estimate|design|flat|FILE",
                    help="noise PSD for the optimal SNRs (default: Welch estimate from each "
                         "file, excluding the signal)")
-    s.add_argument("--f-low", type=float, default=20.0, metavar="HZ", help="default 20")
+    s.add_argument("--f-low", type=float, default=20.0, metavar="HZ",
+                   help="lower frequency of the SNR integral in Hz (default 20)")
     s.add_argument("--f-high", type=float, default=None, metavar="HZ",
                    help="default: 0.8 x Nyquist, the search's band (open data are "
                         "anti-alias filtered near Nyquist)")
@@ -206,7 +212,7 @@ def run(args) -> int:
     with staged_directory(args.out) as stage:
         injected = {}
         for det, strain in strains.items():
-            out = inject(strain, signal, detector=det)
+            out = inject(strain, signal, detector=det, require_overlap=True)
             injected[det] = out
             start = int(math.floor(out.t0.value))
             dur = int(math.ceil(out.duration.value))
@@ -269,7 +275,9 @@ def _f_high(args, strain_or_rate) -> float:
     rate = (float(strain_or_rate.sample_rate.value) if hasattr(strain_or_rate, "sample_rate")
             else float(strain_or_rate))
     if args.f_high is None:
-        return 0.4 * rate  # the conditioning default of ringsearch.data.condition
+        from ringsearch.data.condition import DEFAULT_F_HIGH_FRACTION
+
+        return DEFAULT_F_HIGH_FRACTION * rate / 2  # the conditioning (and search) default
     if not args.f_low < args.f_high <= rate / 2:
         raise InputError(f"--f-high {args.f_high:g} Hz must lie above --f-low "
                          f"({args.f_low:g} Hz) and at or below Nyquist ({rate / 2:g} Hz).")

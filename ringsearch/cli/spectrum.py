@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import textwrap
 
 from ringsearch.errors import InputError
 
@@ -57,7 +58,7 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "spectrum",
         help="Kerr quasinormal-mode frequencies and damping times",
-        description=(
+        description=textwrap.fill(
             "Print the complex quasinormal-mode frequencies M*omega of a Kerr black hole "
             "of the given spin and, with --mass, each mode's frequency (Hz) and damping "
             "time (s). Values come from ringsearch's shipped table of Leaver "
@@ -115,11 +116,15 @@ def _format_table(rows: list[dict], with_mass: bool) -> str:
 
 def plot_tracks(path, modes, spin: float, mass: float | None = None) -> None:
     """Draw each mode against spin (f and tau with a mass, else M*omega), mark ``spin``."""
+    from pathlib import Path
+
     import numpy as np
 
     from ringsearch.physics import qnm
     from ringsearch.style import colour, figure, save_figure
 
+    if Path(path).suffix.lower() not in (".png", ".pdf"):
+        raise InputError(f"--plot {path} must end in .png or .pdf.")
     fig, (ax1, ax2) = figure(nrows=1, ncols=2, figsize=(9, 3.8))
     for i, (l, m, n) in enumerate(modes):
         top = qnm.spin_range(l, m, n)[1]

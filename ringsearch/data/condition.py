@@ -456,6 +456,8 @@ def condition(strain, f_low: float = DEFAULT_F_LOW, f_high: float | None = None,
     if not (math.isfinite(f_high) and f_low < f_high <= nyq):
         raise InputError(f"f_high {f_high!r} Hz must lie above f_low ({f_low:g} Hz) and at or "
                          f"below the Nyquist frequency {nyq:g} Hz.")
+    if not (seglen > 0 and math.isfinite(seglen)):
+        raise InputError(f"seglen {seglen!r} must be a positive number of seconds.")
     truncation = float(seglen) if truncation is None else float(truncation)
     if not (math.isfinite(truncation) and 0 < truncation <= seglen):
         raise InputError(f"truncation {truncation!r} s must be positive and at most the PSD "

@@ -82,7 +82,8 @@ def _sample_range(t0: float, dt: float, n: int, start: float, end: float) -> tup
     return max(i0, 0), min(max(i1, 0), n)
 
 
-def inject(strain: Any, signals: Signal | Iterable[Signal], detector: str | None = None):
+def inject(strain: Any, signals: Signal | Iterable[Signal], detector: str | None = None,
+           require_overlap: bool = False) -> Any:
     """A copy of ``strain`` with ``signals`` added at their arrival times in its detector.
 
     Parameters
@@ -93,12 +94,16 @@ def inject(strain: Any, signals: Signal | Iterable[Signal], detector: str | None
         Waveform models, each placed at its own arrival time in the detector.
     detector : str, optional
         Detector name; by default taken from the series' name or channel.
+    require_overlap : bool
+        Raise :class:`~ringsearch.errors.InputError` when a signal's support
+        does not overlap the data (for a user-placed injection, where that is
+        a mistake rather than a signal that belongs to another stretch of data).
 
     Returns
     -------
     gwpy.timeseries.TimeSeries
         New series; ``strain`` itself is not modified.  Signals whose support
-        lies outside the data add nothing.
+        lies outside the data add nothing (unless ``require_overlap``).
 
     Examples
     --------
@@ -121,6 +126,9 @@ def inject(strain: Any, signals: Signal | Iterable[Signal], detector: str | None
     for s in sigs:
         s.check_sample_rate(fs)
         start, end = s.support(det)
+        if require_overlap and not (start < t0 + n * dt and end > t0):
+            raise InputError(f"the signal (GPS {start:.6f} to {end:.6f} in {det}) does not "
+                             f"overlap the {det} data [{t0:.6f}, {t0 + n * dt:.6f}).")
         i0, i1 = _sample_range(t0, dt, n, start, end)
         if i1 <= i0:
             continue

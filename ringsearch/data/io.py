@@ -30,10 +30,14 @@ import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ringsearch.errors import InputError
+
+if TYPE_CHECKING:
+    from gwpy.timeseries import TimeSeries
 
 #: DQ level used when none is given: the data exist and pass the CBC category-1
 #: and category-2 checks (GWOSC bit names).  Ringdowns are compact-binary signals,
@@ -82,6 +86,31 @@ class _FileStrain:
 
 
 # ----------------------------------------------------------------------------- helpers
+
+#: GPS times accepted as a data start: from the GPS epoch (1980) to 1e10 s
+#: (year 2296); beyond that float64 cannot keep sub-sample timing.
+GPS_MAX = 1e10
+
+
+def check_gps(value: float, name: str) -> float:
+    """``value`` as a float if it is a usable GPS start time, else InputError naming ``name``.
+
+    Examples
+    --------
+    >>> check_gps(1126259446, "--gps-start")
+    1126259446.0
+    >>> check_gps(float("nan"), "--gps-start")
+    Traceback (most recent call last):
+    ringsearch.errors.InputError: --gps-start nan must be a GPS time in [0, 1e+10) s.
+    """
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"{name} {value!r} is not a number.") from None
+    if not (math.isfinite(v) and 0.0 <= v < GPS_MAX):
+        raise InputError(f"{name} {v!r} must be a GPS time in [0, {GPS_MAX:g}) s.")
+    return v
+
 
 def _check_detector(name: str, where: str) -> str:
     name = str(name).strip()
@@ -230,7 +259,7 @@ def _read_text(path: Path, detector: str | None, sample_rate: float | None,
         if sample_rate is None or gps_start is None:
             raise InputError(f"text file {path} has one column, so give both its sample "
                              "rate (--sample-rate) and its GPS start (--gps-start).")
-        data, t0, fs = table[:, 0], float(gps_start), float(sample_rate)
+        data, t0, fs = table[:, 0], check_gps(gps_start, "gps_start"), float(sample_rate)
     elif table.shape[1] == 2:
         times, data = table[:, 0], table[:, 1]
         if times.size < 2:
@@ -245,7 +274,7 @@ def _read_text(path: Path, detector: str | None, sample_rate: float | None,
         if sample_rate is not None and abs(float(sample_rate) - fs) > 1e-6 * fs:
             raise InputError(f"text file {path} is sampled at {fs:g} Hz, "
                              f"not the {float(sample_rate):g} Hz given.")
-        t0 = float(times[0]) if gps_start is None else float(gps_start)
+        t0 = float(times[0]) if gps_start is None else check_gps(gps_start, "gps_start")
     else:
         raise InputError(f"text file {path} has {table.shape[1]} columns; expected one "
                          "(strain) or two (time, strain).")
@@ -335,8 +364,9 @@ def _join(files: list[_FileStrain]):
     return out
 
 
-def read_strain(paths, detector: str | None = None, sample_rate: float | None = None,
-                gps_start: float | None = None):
+def read_strain(paths: str | os.PathLike | Iterable[str | os.PathLike],
+                detector: str | None = None, sample_rate: float | None = None,
+                gps_start: float | None = None) -> TimeSeries:
     """Read one detector's strain from one or more files into one series.
 
     Parameters
@@ -566,6 +596,11 @@ def write_gwosc_hdf5(strain, path: str | os.PathLike, dq_mask: Iterable[int] | N
 
     from ringsearch.files import atomic_path
 
+    if Path(path).suffix.lower() not in _HDF5_SUFFIXES:
+        raise InputError(f"output file {path} must end in .hdf5, .h5 or .hdf (it is written "
+                         "as HDF5 and read back by its suffix).")
+    if Path(path).is_dir():
+        raise InputError(f"output file {path} is an existing folder.")
     data = np.asarray(strain.value, dtype=np.float64)
     t0 = float(strain.t0.value)
     dt = float(strain.dt.value)

@@ -13,10 +13,14 @@ from __future__ import annotations
 import math
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ringsearch.errors import InputError
+
+if TYPE_CHECKING:
+    from gwpy.timeseries import TimeSeries
 
 #: Lowest frequency at which the analytic design fit is used; below it the
 #: curve is held at its 10 Hz value so it stays finite (the fit's stated range
@@ -25,6 +29,11 @@ DESIGN_F_MIN = 10.0
 
 #: Default flat PSD level, 1/Hz (an ASD of 1e-23 per root hertz).
 FLAT_LEVEL = 1e-46
+
+#: Largest series ``gaussian_noise`` draws in one piece: 2**28 float64 samples
+#: (2 GiB; 18 hours at 4096 Hz).  Longer requests are a typo or belong in
+#: several files, and would otherwise die with a MemoryError.
+MAX_SAMPLES = 2**28
 
 
 def _as_frequencies(frequencies) -> np.ndarray:
@@ -124,6 +133,8 @@ def psd_from_file(path: str | os.PathLike, asd: bool | None = None):
     >>> print(f"{psd_from_file(p).value[1]:.3g}")
     1.6e-47
     """
+    if not str(path).strip():
+        raise InputError("the PSD file name is empty.")
     path = Path(path)
     if not path.is_file():
         raise InputError(f"PSD file {path} does not exist.")
@@ -241,9 +252,10 @@ def colouring_filter(psd, sample_rate: float, filter_duration: float = 8.0) -> n
     return taps * windows.hann(n, sym=False)
 
 
-def gaussian_noise(psd, duration: float, sample_rate: float, rng_or_seed,
+def gaussian_noise(psd, duration: float, sample_rate: float,
+                   rng_or_seed: np.random.Generator | int,
                    gps_start: float = 0.0, detector: str = "H1",
-                   filter_duration: float = 8.0):
+                   filter_duration: float = 8.0) -> TimeSeries:
     """Stationary Gaussian noise with one-sided PSD ``psd``, reproducible from a seed.
 
     Parameters
@@ -280,7 +292,7 @@ def gaussian_noise(psd, duration: float, sample_rate: float, rng_or_seed,
     from gwpy.timeseries import TimeSeries
     from scipy.signal import oaconvolve
 
-    from ringsearch.data.io import _check_detector
+    from ringsearch.data.io import _check_detector, check_gps
 
     if not (sample_rate > 0 and math.isfinite(sample_rate)):
         raise InputError(f"sample_rate {sample_rate!r} must be a positive number of hertz.")
@@ -293,6 +305,10 @@ def gaussian_noise(psd, duration: float, sample_rate: float, rng_or_seed,
     if not (filter_duration > 0 and math.isfinite(filter_duration)):
         raise InputError(f"filter_duration {filter_duration!r} must be positive seconds.")
     n = int(round(n))
+    if n > MAX_SAMPLES:
+        raise InputError(f"duration {duration!r} s at {sample_rate:g} Hz is {n} samples, more "
+                         f"than the {MAX_SAMPLES} one series may hold; write several files.")
+    check_gps(gps_start, "gps_start")
     detector = _check_detector(detector, "gaussian_noise")
     rng = _rng(rng_or_seed)
     psd = resolve_psd(psd, np.fft.rfftfreq(int(round(filter_duration * sample_rate)) or 2,

@@ -12,10 +12,15 @@ segments, exactly as scipy does for one stretch.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ringsearch.errors import InputError
+
+if TYPE_CHECKING:
+    from gwpy.frequencyseries import FrequencySeries
+    from gwpy.timeseries import TimeSeries
 
 
 def median_bias(n: int) -> float:
@@ -53,8 +58,9 @@ def _windows(exclude) -> list[tuple[float, float]]:
     return out
 
 
-def estimate_psd(strain, seglen: float = 4.0, overlap: float | None = None,
-                 window: str = "hann", exclude=None, segments=None):
+def estimate_psd(strain: TimeSeries, seglen: float = 4.0, overlap: float | None = None,
+                 window: str = "hann", exclude: tuple[float, float] | None = None,
+                 segments=None) -> FrequencySeries:
     """One-sided PSD by Welch's method with median averaging.
 
     Parameters

@@ -310,6 +310,12 @@ def _sky_basis(ra: Any, dec: Any, gps: Any) -> tuple[np.ndarray, np.ndarray, np.
     """Earth-fixed unit vectors (source direction, e_phi, e_theta), shape (..., 3)."""
     ra, dec, gps = np.broadcast_arrays(np.asarray(ra, float), np.asarray(dec, float),
                                        np.asarray(gps, float))
+    # a declination beyond the poles (or NaN) is a unit or sign mistake, not a direction
+    # (1e-12 rad of slack for values computed with arcsin)
+    bad = ~(np.abs(dec) <= np.pi / 2 + 1e-12)
+    if np.any(bad):
+        raise InputError(f"declination dec={float(dec[bad].flat[0])!r} rad must lie in "
+                         "[-pi/2, pi/2].")
     if gps.ndim == 0 or np.all(gps == gps.flat[0]):
         sidereal = _gmst_scalar(float(gps.flat[0])) if gps.size else gmst(gps)
     else:

@@ -220,7 +220,7 @@ def _u_of(chi: np.ndarray) -> np.ndarray:
     return -np.log1p(-chi)
 
 
-def kerr_omega(l: int, m: int, n: int, spin):
+def kerr_omega(l: int, m: int, n: int, spin: float | np.ndarray) -> complex | np.ndarray:
     """Dimensionless complex QNM frequency ``M*omega`` of a Kerr black hole.
 
     Parameters
@@ -296,7 +296,8 @@ def _check_positive(name: str, value) -> np.ndarray:
     return arr
 
 
-def mode_f_tau(mass, spin, l: int = 2, m: int = 2, n: int = 0):
+def mode_f_tau(mass: float | np.ndarray, spin: float | np.ndarray, l: int = 2, m: int = 2,
+               n: int = 0) -> tuple[float | np.ndarray, float | np.ndarray]:
     """Frequency (Hz) and damping time (s) of a QNM of a black hole.
 
     ``f = Re(M omega) / (2 pi M)``, ``tau = -M / Im(M omega)`` with ``M`` in
@@ -343,7 +344,9 @@ def _q_table(mode: tuple[int, int, int]):
     return y, q, monotonic
 
 
-def remnant_from_f_tau(f_hz, tau_s, l: int = 2, m: int = 2, n: int = 0):
+def remnant_from_f_tau(f_hz: float | np.ndarray, tau_s: float | np.ndarray, l: int = 2,
+                       m: int = 2, n: int = 0
+                       ) -> tuple[float | np.ndarray, float | np.ndarray]:
     """Mass and spin of the black hole whose mode (l, m, n) has frequency f and damping tau.
 
     The quality factor ``Q = pi f tau = -Re(omega) / (2 Im(omega))`` depends on

@@ -49,7 +49,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
                           shifts: Mapping[str, float] | None = None,
                           span: tuple[float, float] | None = None,
                           cluster_window_s: float = 0.1,
-                          maxima: Mapping[str, pd.DataFrame] | None = None) -> pd.DataFrame:
+                          maxima: Mapping[str, pd.DataFrame] | None = None,
+                          snr_column: str = "snr") -> pd.DataFrame:
     """Coincident candidates among the detectors' clustered triggers.
 
     Parameters
@@ -72,6 +73,10 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
         statistic (never above the quadrature sum) penalises noise
         coincidences of unrelated templates; the chosen template is reported
         as ``network_template_index``.
+    snr_column : str
+        Per-detector statistic that ranks and combines: ``"snr"`` (raw
+        projection SNR) or ``"snr_reweighted"`` (after the signal-consistency
+        veto); ``maxima`` must carry the same column.
 
     Returns
     -------
@@ -79,7 +84,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
         One row per candidate: ``gps`` (start time of its loudest trigger),
         ``network_snr`` (ranking statistic), ``network_snr_quadrature``,
         ``network_template_index``, ``n_detectors`` and per detector ``{det}_gps``,
-        ``{det}_snr``, ``{det}_row`` (row in that detector's table, -1 if absent),
+        ``{det}_snr`` (raw SNR), ``{det}_rank_snr`` (the ``snr_column`` value),
+        ``{det}_row`` (row in that detector's table, -1 if absent),
         ``{det}_mass_msun``, ``{det}_spin``, ``{det}_f220_hz``.
 
     Examples
@@ -101,7 +107,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
             a, b = span
             t = a + np.mod(t - a, b - a)
         times[d] = t
-    snrs = {d: triggers[d]["snr"].to_numpy(float) for d in dets}
+    snrs = {d: triggers[d][snr_column].to_numpy(float) for d in dets}
+    raw = {d: triggers[d]["snr"].to_numpy(float) for d in dets}
     order = {d: np.argsort(times[d], kind="stable") for d in dets}
     win = {(a, b): light_travel_time(a, b) + tolerance_s for a, b in
            itertools.permutations(dets, 2)}
@@ -127,8 +134,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
             rows.append(picks)
     cols = ["gps", "network_snr", "n_detectors"]
     for d in dets:
-        cols += [f"{d}_gps", f"{d}_snr", f"{d}_row", f"{d}_mass_msun", f"{d}_spin",
-                 f"{d}_f220_hz"]
+        cols += [f"{d}_gps", f"{d}_snr", f"{d}_rank_snr", f"{d}_row", f"{d}_mass_msun",
+                 f"{d}_spin", f"{d}_f220_hz"]
     if not rows:
         return pd.DataFrame({c: pd.Series(dtype=float) for c in cols})
     out: dict[str, list] = {c: [] for c in cols}
@@ -142,7 +149,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
             tab = triggers[d]
             out[f"{d}_row"].append(j)
             out[f"{d}_gps"].append(float(tab["gps"].iloc[j]) if j >= 0 else math.nan)
-            out[f"{d}_snr"].append(float(snrs[d][j]) if j >= 0 else 0.0)
+            out[f"{d}_snr"].append(float(raw[d][j]) if j >= 0 else 0.0)
+            out[f"{d}_rank_snr"].append(float(snrs[d][j]) if j >= 0 else 0.0)
             for col in ("mass_msun", "spin", "f220_hz"):
                 ok = j >= 0 and col in tab.columns
                 out[f"{d}_{col}"].append(float(tab[col].iloc[j]) if ok else math.nan)
@@ -157,7 +165,8 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
             if span is not None and shifts.get(d, 0.0):
                 t = span[0] + np.mod(t - span[0], span[1] - span[0])
             o = np.argsort(t, kind="stable")
-            mt[d] = (t[o], m["template_index"].to_numpy(int)[o], m["snr"].to_numpy(float)[o])
+            mt[d] = (t[o], m["template_index"].to_numpy(int)[o],
+                     m[snr_column].to_numpy(float)[o])
         half = cluster_window_s / 2
         net, tid = [], []
         for k, picks in enumerate(rows):
@@ -185,7 +194,7 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
     cand = cand.sort_values("network_snr", ascending=False, kind="stable")
     key_t = np.array([
         next(times[d][int(r[f"{d}_row"])] for d in dets if r[f"{d}_row"] >= 0
-             and r[f"{d}_snr"] == max(r[f"{e}_snr"] for e in dets))
+             and r[f"{d}_rank_snr"] == max(r[f"{e}_rank_snr"] for e in dets))
         for _, r in cand.iterrows()])
     keep, kept_t = [], []
     for i, t in enumerate(key_t):

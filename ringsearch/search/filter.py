@@ -399,8 +399,9 @@ def matched_filter(cond: Any, bank: Bank, snr_threshold: float = 5.0, *,
                    cluster_window_s: float | None = None, chunk_s: float | None = None,
                    max_cond: float = MAX_COND, progress: bool = False,
                    gps_window: tuple[float, float] | None = None,
-                   return_maxima: bool = False) -> pd.DataFrame | tuple[pd.DataFrame,
-                                                                        pd.DataFrame]:
+                   return_maxima: bool = False, veto_bins: int | None = None,
+                   veto_domain: str = "time"
+                   ) -> pd.DataFrame | tuple[pd.DataFrame, pd.DataFrame]:
     """Filter one detector's conditioned data with a bank; return clustered triggers.
 
     Parameters
@@ -425,13 +426,24 @@ def matched_filter(cond: Any, bank: Bank, snr_threshold: float = 5.0, *,
         Also return the unclustered per-template maxima (``gps``,
         ``template_index``, ``snr``; one per template and half cluster window),
         which the network statistic uses to find one template for all detectors.
+        With the veto on they also carry ``snr_reweighted``.
+    veto_bins : int, optional
+        Number p of frequency bands of the signal-consistency chi-squared
+        (:mod:`ringsearch.search.veto`).  When given, the chi-squared is
+        computed at every per-template maximum above threshold (not at every
+        sample) and the clustering keeps the largest *re-weighted* SNR.  None
+        (default here; :func:`~ringsearch.search.pipeline.run_search` turns it
+        on) clusters on the raw SNR and leaves ``chisq`` NaN.
+    veto_domain : {"time", "frequency"}
+        Split of the template for the chi-squared: time slices or frequency bands.
 
     Returns
     -------
     DataFrame
         One row per clustered trigger; columns documented in
-        :mod:`ringsearch.search.triggers`.  ``attrs`` hold ``analysed_s`` and
-        ``refused`` (list of ``{template_id, cond_gram, refused}`` records).
+        :mod:`ringsearch.search.triggers`.  ``attrs`` hold ``analysed_s``,
+        ``refused`` (list of ``{template_id, cond_gram, refused}`` records),
+        ``veto_bins`` and ``veto_cpu_s`` (CPU time of the chi-squared).
 
     Examples
     --------
@@ -445,18 +457,44 @@ def matched_filter(cond: Any, bank: Bank, snr_threshold: float = 5.0, *,
     window = default_cluster_window(bank) if cluster_window_s is None else float(cluster_window_s)
     if not window > 0:
         raise InputError(f"cluster window must be positive, got {cluster_window_s}.")
+    if veto_bins is not None:
+        from ringsearch.search.veto import check_bins, check_domain
+
+        veto_bins = check_bins(veto_bins)
+        veto_domain = check_domain(veto_domain)
     cand, templates = filter_candidates(cond, bank.f_hz, bank.tau_s, snr_threshold,
                                         window / 2, chunk_s=chunk_s, max_cond=max_cond,
                                         progress=progress, gps_window=gps_window)
-    kept = cluster_triggers(cand, window)
+    veto_cpu = 0.0
+    if veto_bins is not None:
+        import time
+
+        from ringsearch.search.veto import candidate_chisq, reweighted_snr
+
+        c0 = time.process_time()
+        chi2, dof = candidate_chisq(cond, bank.f_hz, bank.tau_s,
+                                    cand["template_index"].to_numpy(int),
+                                    cand["sample"].to_numpy(np.int64), veto_bins, veto_domain)
+        veto_cpu = time.process_time() - c0
+        cand["chisq"] = chi2
+        cand["chisq_dof"] = dof
+        cand["snr_reweighted"] = reweighted_snr(cand["snr"].to_numpy(float), chi2, dof)
+        kept = cluster_triggers(cand, window, column="snr_reweighted")
+    else:
+        kept = cluster_triggers(cand, window)
     trig = trigger_table(kept, bank, templates, getattr(cond, "detector", ""))
     refused = templates[templates.refused != ""].copy()
     refused.insert(0, "template_id", bank.table.template_id.to_numpy()[refused.index])
     trig.attrs["analysed_s"] = templates.attrs["analysed_s"]
     trig.attrs["refused"] = refused.to_dict("records")
     trig.attrs["cluster_window_s"] = window
+    trig.attrs["veto_bins"] = None if veto_bins is None else int(veto_bins)
+    trig.attrs["veto_domain"] = None if veto_bins is None else veto_domain
+    trig.attrs["veto_cpu_s"] = veto_cpu
     if return_maxima:
-        return trig, cand[["gps", "template_index", "snr"]].copy()
+        cols = ["gps", "template_index", "snr"] + (["snr_reweighted"] if veto_bins is not None
+                                                   else [])
+        return trig, cand[cols].copy()
     return trig
 
 

@@ -32,6 +32,7 @@ from ringsearch.search.significance import (
     time_slide_background,
 )
 from ringsearch.search.triggers import loudest
+from ringsearch.search.veto import DEFAULT_BINS, DEFAULT_DOMAIN, check_bins, check_domain
 
 
 @dataclass
@@ -137,7 +138,8 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
                snr_threshold: float = 5.0, n_slides: int = 100, slide_step_s: float | None = None,
                tolerance_s: float = TIMING_TOLERANCE_S, f_low: float = 20.0,
                f_high: float | None = None, dq_level: str = "CBC_CAT2", seed: int = 0,
-               progress: bool = False) -> SearchResult:
+               progress: bool = False, veto: bool = True,
+               veto_bins: int = DEFAULT_BINS, veto_domain: str = DEFAULT_DOMAIN) -> SearchResult:
     """Search strain for ringdowns and rank candidates by false-alarm rate.
 
     Parameters
@@ -162,6 +164,15 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         window, rounded up to 0.1 s).
     tolerance_s : float
         Timing tolerance added to the light-travel time for coincidence.
+    veto : bool
+        Signal-consistency veto (default on): the band chi-squared of
+        :mod:`ringsearch.search.veto` at every trigger, and clustering,
+        coincidence, network statistic and FAR ranked by the re-weighted SNR
+        (the raw SNR stays in the ``snr`` columns).  Off: ranked by raw SNR.
+    veto_bins : int
+        Number p of pieces of the chi-squared (default 8).
+    veto_domain : {"time", "frequency"}
+        Pieces are time slices of the whitened template (default) or frequency bands.
 
     Returns
     -------
@@ -177,6 +188,10 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         raise InputError(f"SNR threshold must be positive, got {snr_threshold}.")
     if int(n_slides) < 0:
         raise InputError(f"number of time slides must be non-negative, got {n_slides}.")
+    bins = check_bins(veto_bins) if veto else None
+    if veto:
+        veto_domain = check_domain(veto_domain)
+    rank = "snr_reweighted" if veto else "snr"
     if bank is None:
         # validate the box before any expensive work
         from ringsearch.search.bank import _check_overtones, _check_range
@@ -207,7 +222,8 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
     refused = None
     for det, c in conds.items():
         t, mx = matched_filter(c, bank, snr_threshold, cluster_window_s=window,
-                               progress=progress, gps_window=gps_window, return_maxima=True)
+                               progress=progress, gps_window=gps_window, return_maxima=True,
+                               veto_bins=bins, veto_domain=veto_domain)
         trig_by_det[det] = t
         maxima[det] = mx
         analysed[det] = float(t.attrs["analysed_s"])
@@ -218,9 +234,9 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
     sig: dict[str, Any]
     background = pd.DataFrame()
     if len(dets) == 1:
-        cands = single_detector_far(trig_by_det[dets[0]], analysed[dets[0]])
-        cands = cands.sort_values("snr", ascending=False).reset_index(drop=True)
-        cands.insert(2, "network_snr", cands["snr"])
+        cands = single_detector_far(trig_by_det[dets[0]], analysed[dets[0]], column=rank)
+        cands = cands.sort_values(rank, ascending=False).reset_index(drop=True)
+        cands.insert(2, "network_snr", cands[rank])
         sig = {"method": SINGLE_METHOD, "background_time_s": analysed[dets[0]]}
     else:
         from gwpy.segments import SegmentList
@@ -257,11 +273,12 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
                              f"window plus the longest template ({min_step:.3g} s).")
         n_use = min(int(n_slides), max_distinct_slides(span[1] - span[0], slide_step_s, len(dets)))
         zero = coincident_candidates(in_common, tolerance_s=tolerance_s, cluster_window_s=window,
-                                     maxima=maxima)
+                                     maxima=maxima, snr_column=rank)
         if n_use > 0:
             background = time_slide_background(in_common, span, n_slides=n_use,
                                                step_s=slide_step_s, tolerance_s=tolerance_s,
-                                               cluster_window_s=window, maxima=maxima)
+                                               cluster_window_s=window, maxima=maxima,
+                                               snr_column=rank)
             cands = assign_far(zero, background, n_use, live, dets)
         else:
             cands = zero.copy()
@@ -283,10 +300,20 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         if n_use == 0:
             sig["note"] = ("the coincident data is too short for any time slide of "
                            f"{slide_step_s} s; no FAR is given")
+    what = "re-weighted SNR rho_hat" if veto else "projection SNR rho"
     sig["network_statistic"] = (
-        "sqrt(max over templates of the sum over detectors of rho^2), one template for all "
-        "detectors" if len(dets) > 1 else "single-detector projection SNR")
-    summary = _summary(conds, bank, trig_by_det, cands, sig, refused, window,
+        f"sqrt(max over templates of the sum over detectors of the squared {what}), one "
+        "template for all detectors" if len(dets) > 1 else f"single-detector {what}")
+    sig["veto"] = ({"bins": int(bins), "domain": veto_domain,
+                    "statistic": "chi-squared of the projection split into p equal-share "
+                    f"{'time slices' if veto_domain == 'time' else 'frequency bands'}, "
+                    "dof 2(N+1)(p-1) at most (Allen 2005, PRD 71, 062001, adapted)",
+                    "reweighting": "rho / [(1 + chi2_r^3)/2]^(1/6) for chi2_r > 1 "
+                    "(Babak et al. 2013, PRD 87, 024033)",
+                    "cpu_s": {d: float(trig_by_det[d].attrs.get("veto_cpu_s", 0.0))
+                              for d in dets}}
+                   if veto else None)
+    summary = _summary(conds, bank, trig_by_det, cands, sig, refused, window, rank,
                        dict(snr_threshold=float(snr_threshold), gps_start=gps_start,
                             gps_end=gps_end))
     if "mass_range_msun" in bank.meta:
@@ -312,11 +339,11 @@ def _clean(x: Any) -> Any:
     return x
 
 
-def _summary(conds, bank, trig_by_det, cands, sig, refused, window, params) -> dict:
+def _summary(conds, bank, trig_by_det, cands, sig, refused, window, rank, params) -> dict:
     dets = list(conds)
     out: dict[str, Any] = {
         "detectors": dets,
-        "loudest": {d: loudest(trig_by_det[d]) for d in dets},
+        "loudest": {d: loudest(trig_by_det[d], rank) for d in dets},
         "n_triggers": {d: int(len(trig_by_det[d])) for d in dets},
         "significance": sig,
         "segments": {d: [[float(s[0]), float(s[1])] for s in conds[d].analysable] for d in dets},
@@ -346,11 +373,16 @@ def _summary(conds, bank, trig_by_det, cands, sig, refused, window, params) -> d
                 if j >= 0:
                     t = trig_by_det[d].iloc[j]
                     row["detectors"][d] = {"gps": float(t.gps), "snr": float(t.snr),
+                                           "snr_reweighted": float(t.snr_reweighted),
+                                           "chisq": float(t.chisq),
+                                           "chisq_dof": int(t.chisq_dof),
                                            "mass": float(t.mass_msun), "spin": float(t.spin),
                                            "f_hz": float(t.f220_hz), "tau_s": float(t.tau220_s),
                                            "template_id": int(t.template_id)}
         else:
-            row.update({"detector": dets[0], "snr": float(r["snr"]), "mass": float(r.mass_msun),
+            row.update({"detector": dets[0], "snr": float(r["snr"]),
+                        "snr_reweighted": float(r["snr_reweighted"]), "chisq": float(r["chisq"]),
+                        "chisq_dof": int(r["chisq_dof"]), "mass": float(r.mass_msun),
                         "spin": float(r.spin), "f_hz": float(r.f220_hz),
                         "tau_s": float(r.tau220_s), "template_id": int(r.template_id)})
         rows.append(row)

@@ -35,7 +35,8 @@ SINGLE_METHOD = ("single detector: FAR from the rate of this data's own clustere
 def time_slide_background(triggers: Mapping[str, pd.DataFrame], span: tuple[float, float], *,
                           n_slides: int = 100, step_s: float, tolerance_s: float =
                           TIMING_TOLERANCE_S, cluster_window_s: float = 0.1,
-                          maxima: Mapping[str, pd.DataFrame] | None = None) -> pd.DataFrame:
+                          maxima: Mapping[str, pd.DataFrame] | None = None,
+                          snr_column: str = "snr") -> pd.DataFrame:
     """Coincident candidates of ``n_slides`` time slides (never the zero lag).
 
     Detector i (in mapping order) is shifted by ``k * i * step_s`` for slide
@@ -44,7 +45,7 @@ def time_slide_background(triggers: Mapping[str, pd.DataFrame], span: tuple[floa
 
     Returns the candidates with a ``slide`` column; ``maxima`` as for
     :func:`~ringsearch.search.coincidence.coincident_candidates` (the same
-    network statistic as the zero lag must be used).
+    network statistic as the zero lag must be used), and so must ``snr_column``.
 
     Examples
     --------
@@ -62,7 +63,8 @@ def time_slide_background(triggers: Mapping[str, pd.DataFrame], span: tuple[floa
     for k in range(1, n_slides + 1):
         shifts = {d: k * i * step_s for i, d in enumerate(dets)}
         c = coincident_candidates(triggers, tolerance_s=tolerance_s, shifts=shifts, span=span,
-                                  cluster_window_s=cluster_window_s, maxima=maxima)
+                                  cluster_window_s=cluster_window_s, maxima=maxima,
+                                  snr_column=snr_column)
         c["slide"] = k
         out.append(c)
     if not out:
@@ -110,8 +112,9 @@ def assign_far(candidates: pd.DataFrame, background: pd.DataFrame, n_slides: int
     return cand
 
 
-def single_detector_far(triggers: pd.DataFrame, analysed_s: float) -> pd.DataFrame:
-    """FAR of each trigger from the rate of the other triggers at least as loud.
+def single_detector_far(triggers: pd.DataFrame, analysed_s: float,
+                        column: str = "snr") -> pd.DataFrame:
+    """FAR of each trigger from the rate of the other triggers at least as loud (by ``column``).
 
     Examples
     --------
@@ -122,9 +125,9 @@ def single_detector_far(triggers: pd.DataFrame, analysed_s: float) -> pd.DataFra
     if analysed_s <= 0:
         raise InputError("no analysed time: cannot estimate a false-alarm rate.")
     out = triggers.copy()
-    s = np.sort(out["snr"].to_numpy(float))
-    # number of *other* triggers with snr >= this one's
-    n_ge = s.size - np.searchsorted(s, out["snr"].to_numpy(float), "left") - 1
+    s = np.sort(out[column].to_numpy(float))
+    # number of *other* triggers with a statistic >= this one's
+    n_ge = s.size - np.searchsorted(s, out[column].to_numpy(float), "left") - 1
     upper = n_ge == 0
     far = np.maximum(n_ge, 1) / analysed_s * YEAR_S
     out["n_louder_background"] = n_ge

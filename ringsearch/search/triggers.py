@@ -7,7 +7,10 @@ Trigger table columns (one row per clustered trigger):
 n = 0..N ``f22{n}_hz``, ``tau22{n}_s``, ``amp22{n}_re``, ``amp22{n}_im`` (the
 maximum-likelihood complex amplitude ``A_n`` at t0, strain units: the fitted
 signal is ``Re[A_n e^{-i 2 pi f_n (t-t0)}] e^{-(t-t0)/tau_n}``), ``amp22{n}_abs``,
-and ``cond_gram`` (condition number of the template's normalised Gram matrix).
+``cond_gram`` (condition number of the template's normalised Gram matrix), and
+the signal-consistency veto (:mod:`ringsearch.search.veto`): ``chisq`` (band
+chi-squared; NaN when the veto is off), ``chisq_dof`` (its degrees of freedom;
+0 when off) and ``snr_reweighted`` (the ranking SNR; equal to ``snr`` when off).
 """
 
 from __future__ import annotations
@@ -24,10 +27,11 @@ BASE_COLUMNS = ["gps", "detector", "snr", "template_id", "mass_msun", "spin",
                 "n_overtones", "cond_gram"]
 
 
-def cluster_triggers(cand: pd.DataFrame, window_s: float) -> pd.DataFrame:
+def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr") -> pd.DataFrame:
     """Keep the loudest candidate in every time window, across all templates.
 
-    Greedy: candidates are taken loudest first and kept unless a kept one lies
+    Greedy: candidates are taken loudest first (by ``column``: ``"snr"``, or
+    ``"snr_reweighted"`` with the veto on) and kept unless a kept one lies
     within ``window_s`` of it, so one signal makes one trigger.
 
     Examples
@@ -38,7 +42,7 @@ def cluster_triggers(cand: pd.DataFrame, window_s: float) -> pd.DataFrame:
     """
     if len(cand) == 0:
         return cand.copy()
-    order = np.argsort(-cand["snr"].to_numpy(), kind="stable")
+    order = np.argsort(-cand[column].to_numpy(), kind="stable")
     t = cand["gps"].to_numpy()[order]
     kept_t: list[float] = []
     kept: list[int] = []
@@ -82,15 +86,22 @@ def trigger_table(kept: pd.DataFrame, bank: Bank, templates: pd.DataFrame,
         out[f"amp22{n}_re"] = re
         out[f"amp22{n}_im"] = im
         out[f"amp22{n}_abs"] = np.hypot(re, im)
+    n_rows = len(ti)
+    has = len(kept) and "chisq" in kept.columns
+    out["chisq"] = kept["chisq"].to_numpy(float) if has else np.full(n_rows, np.nan)
+    out["chisq_dof"] = kept["chisq_dof"].to_numpy(int) if has else np.zeros(n_rows, int)
+    out["snr_reweighted"] = (kept["snr_reweighted"].to_numpy(float) if has
+                             else out["snr"].to_numpy(float))
     out["detector"] = out["detector"].astype(str)
     return out
 
 
-def loudest(triggers: pd.DataFrame) -> dict | None:
-    """The loudest trigger as a plain dict with the summary keys of DESIGN.md.
+def loudest(triggers: pd.DataFrame, column: str = "snr") -> dict | None:
+    """The loudest trigger (largest ``column``) as a plain dict with the summary keys of DESIGN.md.
 
     Keys: ``gps, snr, mass, spin, f_hz, tau_s, n_overtones`` (f/tau of (2,2,0))
-    plus ``template_id`` and ``detector``.
+    plus ``template_id``, ``detector`` and, when present, ``snr_reweighted``,
+    ``chisq``, ``chisq_dof``.
 
     Examples
     --------
@@ -98,8 +109,12 @@ def loudest(triggers: pd.DataFrame) -> dict | None:
     """
     if triggers is None or len(triggers) == 0:
         return None
-    r = triggers.loc[triggers["snr"].idxmax()]
-    return {"gps": float(r.gps), "snr": float(r.snr), "mass": float(r.mass_msun),
-            "spin": float(r.spin), "f_hz": float(r.f220_hz), "tau_s": float(r.tau220_s),
-            "n_overtones": int(r.n_overtones), "template_id": int(r.template_id),
-            "detector": str(r.detector)}
+    r = triggers.loc[triggers[column].idxmax()]
+    out = {"gps": float(r.gps), "snr": float(r.snr), "mass": float(r.mass_msun),
+           "spin": float(r.spin), "f_hz": float(r.f220_hz), "tau_s": float(r.tau220_s),
+           "n_overtones": int(r.n_overtones), "template_id": int(r.template_id),
+           "detector": str(r.detector)}
+    if "snr_reweighted" in triggers.columns:
+        out.update(snr_reweighted=float(r.snr_reweighted), chisq=float(r.chisq),
+                   chisq_dof=int(r.chisq_dof))
+    return out
