@@ -198,3 +198,22 @@ def test_candidate_evidence_for_campaigns_loud_fundamental_only():
     again = candidate_evidence({"H1": x}, t0, (40.0, 110.0), (0.0, 0.95), 2, psds={"H1": psd},
                                cache=cache)
     assert len(cache) == 1 and again["log10_bayes"] == ev["log10_bayes"]
+
+
+def test_candidate_from_search_takes_coincident_start_times(tmp_path):
+    """The loudest coincident candidate gives each detector its own start time."""
+    import pandas as pd
+
+    from ringsearch.analysis.pipeline import candidate_from_search
+
+    pd.DataFrame({"gps": [10.0, 20.0], "snr": [6.0, 9.0], "detector": ["H1", "L1"]}).to_parquet(
+        tmp_path / "triggers.parquet")
+    pd.DataFrame({"gps": [20.003, 5.0], "network_snr": [12.0, 7.0],
+                  "H1_gps": [20.0, 5.0], "L1_gps": [20.003, 5.001]}).to_parquet(
+        tmp_path / "candidates.parquet")
+    found = candidate_from_search(tmp_path)
+    assert found["gps"] == 20.003
+    assert found["time_shifts"]["H1"] == pytest.approx(-0.003)
+    assert found["time_shifts"]["L1"] == 0.0
+    # an explicit trigger row still wins over the candidates
+    assert candidate_from_search(tmp_path, 0)["gps"] == 10.0

@@ -200,10 +200,14 @@ def sky_geometry(strain_input, sky: tuple[float, float], gps: float,
 
 
 def candidate_from_search(folder: str | os.PathLike, trigger: int | None = None) -> dict:
-    """Start time (and detector, template) of a trigger in a search output folder.
+    """Start time (and detector, template) of a candidate in a search output folder.
 
-    ``trigger`` is the row number (0-based) in ``triggers.parquet``; by
-    default the loudest trigger.
+    ``trigger`` is the row number (0-based) in ``triggers.parquet``.  By
+    default the loudest coincident candidate of ``candidates.parquet`` is
+    taken when there is one, and its per-detector start times are returned
+    as ``time_shifts`` (seconds relative to ``gps``) so every detector's
+    segment starts where that detector's template did; otherwise the loudest
+    single-detector trigger.
 
     Examples
     --------
@@ -217,6 +221,18 @@ def candidate_from_search(folder: str | os.PathLike, trigger: int | None = None)
     trig = pd.read_parquet(table)
     if len(trig) == 0:
         raise InputError(f"the search folder {folder} holds no triggers.")
+    cand_table = folder / "candidates.parquet"
+    if trigger is None and cand_table.exists():
+        cands = pd.read_parquet(cand_table)
+        if len(cands):
+            best = cands.loc[cands["network_snr"].idxmax()]
+            gps = float(best["gps"])
+            shifts = {}
+            for col in cands.columns:
+                if col.endswith("_gps") and pd.notna(best[col]):
+                    shifts[col[:-4]] = float(best[col]) - gps
+            return {"gps": gps, "detector": "network", "snr": float(best["network_snr"]),
+                    "time_shifts": shifts}
     if trigger is None:
         row = trig.loc[trig["snr"].idxmax()]
     else:

@@ -160,8 +160,12 @@ def run(args: argparse.Namespace) -> int:
         if not math.isfinite(args.gps):
             raise InputError(f"--gps {args.gps} is not a finite GPS time.")
         gps = float(args.gps)
+        shifts = _shifts(args.shift)
     else:
-        gps = candidate_from_search(args.from_search, args.trigger)["gps"]
+        found = candidate_from_search(args.from_search, args.trigger)
+        gps = found["gps"]
+        # per-detector start times of a coincident candidate, unless given explicitly
+        shifts = _shifts(args.shift) or (found.get("time_shifts") if args.sky is None else None)
     if args.max_overtones < 0 or args.max_overtones > 5:
         raise InputError(f"--max-overtones {args.max_overtones} must be between 0 and 5.")
     if args.duration is not None and not (0 < args.duration <= 2.0):
@@ -176,7 +180,7 @@ def run(args: argparse.Namespace) -> int:
         duration=args.duration, f_low=args.f_low, f_high=args.f_high, grid=_grid(args.grid),
         t0_offsets_ms=_offsets(args.t0_offsets), amp_sigma=args.amp_prior,
         amp_prior_snr=args.amp_prior_snr, threshold=args.threshold,
-        time_shifts=_shifts(args.shift), run_varpro=not args.no_varpro, seed=args.seed,
+        time_shifts=shifts, run_varpro=not args.no_varpro, seed=args.seed,
         progress=sys.stderr.isatty(), sky=_sky(args.sky))
     b = ", ".join(f"{k}: {v:+.2f}" for k, v in summary["log10_bayes"].items())
     m, s = summary["mass"], summary["spin"]
