@@ -28,7 +28,12 @@ def test_search_writes_contract_outputs(gw150914_files, tmp_path, capsys):
     assert summary["candidates"][0]["far_per_year"] > 0
     trig = pd.read_parquet(out / "triggers.parquet")
     assert {"gps", "detector", "snr", "mass_msun", "spin", "f220_hz", "tau220_s",
-            "amp220_re", "amp220_im", "cond_gram", "template_id"} <= set(trig.columns)
+            "amp220_re", "amp220_im", "cond_gram", "template_id", "chisq", "chisq_dof",
+            "snr_reweighted"} <= set(trig.columns)
+    # the veto is on by default: every trigger has a chi-squared, and ranks by re-weighted SNR
+    assert trig.chisq.notna().all() and (trig.chisq_dof > 0).all()
+    assert (trig.snr_reweighted <= trig.snr + 1e-12).all()
+    assert summary["significance"]["veto"]["bins"] == 8
     for name in ("snr_loudest", "whitened_fit", "bank", "far", "qtransform_H1"):
         assert (out / "plots" / f"{name}.png").stat().st_size > 1000
     # reuse the bank
@@ -39,6 +44,14 @@ def test_search_writes_contract_outputs(gw150914_files, tmp_path, capsys):
     s2 = json.loads((out2 / "summary.json").read_text())
     assert s2["bank"]["n_templates"] == summary["bank"]["n_templates"]
     assert "single detector" in s2["significance"]["method"]
+    # --no-veto: raw SNR ranking, no chi-squared
+    out3 = tmp_path / "run3"
+    assert main(["search", files[0], "--out", str(out3), "--bank", str(out / "bank.parquet"),
+                 "--gps-start", str(GW150914_GPS - 2), "--gps-end", str(GW150914_GPS + 2),
+                 "--no-plots", "--no-veto"]) == 0
+    trig3 = pd.read_parquet(out3 / "triggers.parquet")
+    assert trig3.chisq.isna().all() and (trig3.snr_reweighted == trig3.snr).all()
+    assert json.loads((out3 / "summary.json").read_text())["significance"]["veto"] is None
 
 
 @pytest.mark.parametrize("extra, words", [
@@ -48,6 +61,7 @@ def test_search_writes_contract_outputs(gw150914_files, tmp_path, capsys):
     (["--min-match", "1.2"], "minimal match"),
     (["--gps-start", "1000000000", "--gps-end", "1000000010"], "outside"),
     (["--overtones", "-1"], "overtones"),
+    (["--veto-bins", "1"], "veto bands"),
 ])
 def test_bad_input_one_sentence_and_no_output(gw150914_files, tmp_path, capsys, extra, words):
     out = tmp_path / "bad"

@@ -54,6 +54,11 @@ def test_run_search_finds_coincident_injection_with_significance():
     res = run_search(data, bank=bank, n_slides=20)
     best = res.summary["loudest_candidate"]
     assert abs(best["gps"] - (GPS + 16.0)) < 0.01
-    assert best["network_snr"] == pytest.approx(np.hypot(14.0, 12.0), abs=3.0)
+    # the raw SNRs add in quadrature to the injected network SNR; the ranking statistic
+    # (re-weighted by the veto, on by default) never exceeds that and loses little for an
+    # exact ringdown (bank mismatch and noise leave chi^2 near its dof)
+    raw = np.hypot(*[v["snr"] for v in best["detectors"].values()])
+    assert raw == pytest.approx(np.hypot(14.0, 12.0), abs=3.0)
+    assert 0.8 * raw <= best["network_snr"] <= raw + 1e-9
     assert best["far_per_year"] > 0 and res.summary["significance"]["n_slides"] == 20
     assert abs(best["template"]["f_hz"] / f[0] - 1) < 0.1

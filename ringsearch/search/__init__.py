@@ -10,6 +10,9 @@ Public API (stable; see DEVELOPERS.md):
 * :func:`~ringsearch.search.coincidence.coincident_candidates`,
   :func:`~ringsearch.search.significance.time_slide_background`,
   :func:`~ringsearch.search.significance.single_detector_far`
+* :func:`~ringsearch.search.veto.chisq_at`,
+  :func:`~ringsearch.search.veto.candidate_chisq`,
+  :func:`~ringsearch.search.veto.reweighted_snr` (signal-consistency veto)
 * :func:`~ringsearch.search.pipeline.run_search` -> ``SearchResult``
 """
 
@@ -27,6 +30,9 @@ _API = {
     "coincident_candidates": "ringsearch.search.coincidence",
     "time_slide_background": "ringsearch.search.significance",
     "single_detector_far": "ringsearch.search.significance",
+    "chisq_at": "ringsearch.search.veto",
+    "candidate_chisq": "ringsearch.search.veto",
+    "reweighted_snr": "ringsearch.search.veto",
     "run_search": "ringsearch.search.pipeline",
     "SearchResult": "ringsearch.search.pipeline",
 }

@@ -1,47 +1,43 @@
-"""Signal-consistency veto: a frequency-band chi-squared for the projection statistic.
+"""Signal-consistency veto: a chi-squared test for the multi-mode projection statistic.
 
-Allen's time-frequency test (Allen 2005, PRD 71, 062001) splits a template into
-p frequency bands that each carry an equal share of its expected SNR and
-checks that the data's SNR is shared among the bands as a signal's would be.
-Here it is adapted to the multi-mode projection statistic of
-:mod:`ringsearch.search.filter`.
+Allen's test (Allen 2005, PRD 71, 062001) splits a template into p pieces that
+each carry an equal share of its expected SNR and checks that the data's SNR
+is shared among the pieces as a signal's would be.  Here it is adapted to the
+projection statistic of :mod:`ringsearch.search.filter` (K = N+1 complex
+amplitudes), with pieces that are either *time slices* of the whitened
+template (default) or *frequency bands* (Allen's choice for chirps).
 
 Let ``e_j`` (j = 0..2K-1) be the template's whitened, orthonormalised basis
-(``<e_j, e_k> = delta_jk``) and ``e_j^b`` its part in frequency band b (the
-bands are disjoint, so ``sum_b e_j^b = e_j``).  With ``y^b_j = <d, e_j^b>``,
-``y = sum_b y^b`` (the projection coordinates, ``rho^2 = |y|^2``) and the band
-Gram matrices ``M^b_jk = <e_j^b, e_k^b>`` (``sum_b M^b = I``)::
+(``<e_j, e_k> = delta_jk``) and ``e_j^b`` its piece b (``sum_b e_j^b = e_j``).
+With the data coordinates ``Y^b_j = <d, e_j^b>``, ``y = sum_b Y^b`` (the
+projection coordinates, ``rho^2 = |y|^2``) and ``M^b_jk = <e_j^b, e_k^b>``
+(``sum_b M^b = I``), the residuals are ``R^b = Y^b - M^b y``.
 
-    chi^2 = sum_b (y^b - M^b y)^T (M^b)^{-1} (y^b - M^b y).
+* A signal in the template's span, ``d = n + sum_k c_k e_k``, adds ``M^b c`` to
+  ``Y^b`` and ``c`` to ``y``: it cancels from every residual whatever its
+  amplitudes, so exact templates are never vetoed.  Signal power outside the
+  span (a chirp fitted by a damped sinusoid) leaves residuals growing as SNR^2.
+* In Gaussian noise ``R = L Y`` is Gaussian with covariance ``L Sigma L^T``,
+  ``Sigma`` the noise covariance of the stacked ``Y``.  The statistic is
+  ``chi^2 = R^T (L Sigma L^T)^+ R``, chi-squared with ``rank(L Sigma L^T)``
+  degrees of freedom and independent of ``rho^2``.  ``L`` removes the 2K
+  directions of ``y``, so the rank is at most ``2Kp - 2K = 2K(p - 1)`` (for
+  K = 1 Allen's 2p - 2).  For frequency bands ``Sigma`` is block diagonal
+  (``M^b``: disjoint bands are independent) and the rank is exactly 2K(p-1);
+  for time slices ``Sigma`` is taken through the band projector (the whitened
+  noise is white only inside [f_low, f_high], and a sharp slice leaks out of
+  it).  Directions of ``L Sigma L^T`` with eigenvalue below :data:`RANK_TOL` of
+  the largest (e.g. a slice of a few samples, where the cosine and sine pieces
+  are nearly parallel) are dropped from the inverse *and* from the dof, which
+  each trigger reports as ``chisq_dof``.
 
-Why this is chi-squared with 2K(p-1) degrees of freedom in Gaussian noise:
-the bands are disjoint in frequency, so the y^b are independent with
-covariances M^b; ``x^b = (M^b)^{-1/2} y^b`` are 2Kp independent unit normals
-and ``y = A^T x`` with ``A`` the stacked ``(M^b)^{1/2}``, whose 2K columns are
-orthonormal (``A^T A = sum_b M^b = I``).  The statistic is ``|x - A A^T x|^2``:
-the squared norm of x projected off a 2K-dimensional subspace, i.e. chi-squared
-with ``2Kp - 2K = 2K(p - 1)`` dof, independent of ``rho^2``.  For K = 1 this
-is Allen's 2p - 2.  A signal lying exactly in the template's span,
-``d = n + sum_k c_k e_k``, adds ``M^b c`` to every ``y^b`` and ``c`` to ``y``,
-so it cancels from the residuals whatever its amplitudes: exact templates are
-never vetoed.  Part of a signal *outside* the span (a chirp fitted by a damped
-sinusoid) leaves a residual that grows with the square of its SNR.
-
-Bands are contiguous frequency intervals with equal shares of the template's
-total expected power ``sum_j |E_j(f)|^2`` (equal expected SNR for a signal
-with random amplitudes).  Band directions whose share is numerically nil
-(eigenvalue of M^b below :data:`RANK_TOL` of the band's mean) are left out of
-the inverse and of the dof, which are then ``sum_b rank(M^b) - 2K``.
-
-The inner products are dot products of the whitened data with one period of
-each band-limited basis function on an FFT grid holding the template and the
-whitening filter, exactly as :func:`ringsearch.search.filter.projection_snr`
-does: by Parseval on that grid the band pieces are exactly orthogonal and sum
-exactly to the template, so both properties above hold for the computed
-numbers, not just in the continuum limit.  The statistic is evaluated only at
-given (template, sample) pairs -- the per-template maxima above threshold --
-never for the whole series, so its cost is one matrix product per template
-with candidates.
+The inner products are dot products of the whitened data with the pieces on an
+FFT grid holding the template and the whitening filter, as in
+:func:`ringsearch.search.filter.projection_snr`; by Parseval on that grid the
+pieces sum exactly to the template, so the cancellation holds for the computed
+numbers.  The statistic is evaluated only at given (template, sample) pairs --
+the per-template maxima above threshold -- never for the whole series: one
+piece basis per template with candidates, then one small matrix product.
 
 The re-weighted SNR that ranks triggers is the form used by the LIGO S6
 compact-binary searches (Babak et al. 2013, PRD 87, 024033)::
@@ -50,6 +46,12 @@ compact-binary searches (Babak et al. 2013, PRD 87, 024033)::
     rho_hat = rho / [(1 + chi2_r^3) / 2]^(1/6)     if chi2_r > 1
 
 with ``chi2_r = chi^2 / dof``.
+
+Why time slices by default: a damped sinusoid is one spectral line of width
+~1/(pi tau); what distinguishes it from the merger that precedes a ringdown is
+its exponential decay from t0, which time slices test directly (too much SNR in
+late slices when the template starts before the peak).  Both splits are
+offered; the tests show each catching chirp-like bursts (tests/test_search_veto.py).
 """
 
 from __future__ import annotations
@@ -223,7 +225,7 @@ def reweighted_snr(snr: Any, chisq: Any, dof: Any) -> np.ndarray:
     Examples
     --------
     >>> reweighted_snr([10.0, 10.0], [8.0, 80.0], [8, 8]).round(3).tolist()
-    [10.0, 4.642]
+    [10.0, 3.549]
     """
     snr = np.asarray(snr, float)
     r = np.asarray(chisq, float) / np.maximum(np.asarray(dof, float), 1.0)
@@ -232,7 +234,13 @@ def reweighted_snr(snr: Any, chisq: Any, dof: Any) -> np.ndarray:
 
 
 def grid_length(tau_max: float, sample_rate: float, pad: int) -> int:
-    """FFT length holding a template of decay ``tau_max`` plus the whitening filter."""
+    """FFT length holding a template of decay ``tau_max`` plus the whitening filter.
+
+    Examples
+    --------
+    >>> grid_length(0.004, 4096.0, 100) >= 8 * 0.004 * 4096 + 200
+    True
+    """
     tail = int(math.ceil(DECAY_TIMES * tau_max * sample_rate))
     return scipy.fft.next_fast_len(tail + 2 * pad + 2, real=True)
 
@@ -265,7 +273,13 @@ def chisq_at(cond: Any, f_hz: Any, tau_s: Any, samples: Any, bins: int = DEFAULT
 
 
 def data_segments(vals: np.ndarray, samples: np.ndarray, pad: int, n: int) -> np.ndarray:
-    """Rows ``vals[s - pad : s - pad + n]`` for each start sample s (zeros outside the data)."""
+    """Rows ``vals[s - pad : s - pad + n]`` for each start sample s (zeros outside the data).
+
+    Examples
+    --------
+    >>> data_segments(np.arange(5.0), np.array([0, 4]), 1, 3).tolist()
+    [[0.0, 0.0, 1.0], [3.0, 4.0, 0.0]]
+    """
     padded = np.concatenate([np.zeros(n), vals, np.zeros(n)])
     win = np.lib.stride_tricks.sliding_window_view(padded, n)
     return win[samples - pad + n]
