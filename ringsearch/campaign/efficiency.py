@@ -5,6 +5,9 @@
   (``scipy.stats.binomtest(...).proportion_ci``).
 * :func:`efficiency_table` — found fraction per bin of a quantity (network
   optimal SNR or distance), per (injected, template) overtone-count pair.
+* :func:`overtone_efficiency_table` — overtone-recovery efficiency: the
+  fraction of injections whose data support at least k overtones, binned the
+  same way and with the same intervals (it calls :func:`efficiency_table`).
 * :func:`fit_sigmoid` — unbinned maximum-likelihood logistic fit of found
   against the quantity, giving the 50 % and 90 % points with delta-method
   uncertainties from the exact Fisher information.  scipy has no logistic
@@ -143,6 +146,70 @@ def efficiency_table(found: pd.DataFrame, by: str, edges: np.ndarray,
                 "confidence": confidence, "ci_method": method,
             })
     return pd.DataFrame(rows, columns=EFFICIENCY_COLUMNS)
+
+
+#: Columns of the overtone-recovery efficiency table (``overtone_efficiency.csv``).
+OVERTONE_EFFICIENCY_COLUMNS = [
+    "population", "injected_overtones", "template_overtones", "required_overtones",
+    "binned_by", "bin_lo", "bin_hi", "bin_centre", "n_injected", "n_supported", "efficiency",
+    "ci_lo", "ci_hi", "confidence", "ci_method",
+]
+
+#: ``template_overtones`` of the rows that pool all injections: the evidence is
+#: computed at the injection's true arrival time and does not depend on the search.
+ALL_TEMPLATES = -1
+
+
+def overtone_efficiency_table(rows: pd.DataFrame, max_overtones: int, by: str,
+                              edges: np.ndarray, confidence: float = 0.9,
+                              method: str = "wilson", population: str = "all"
+                              ) -> pd.DataFrame:
+    """Fraction of injections whose data support at least k overtones, per bin of ``by``.
+
+    For each required count k = 1..``max_overtones`` the rows are marked
+    "supported" when ``supported_overtones >= k`` and passed to
+    :func:`efficiency_table`, so bins and binomial intervals are exactly
+    those of the detection efficiency.  Rows with ``supported_overtones < 0``
+    (evidence not computed) are left out.
+
+    Parameters
+    ----------
+    rows : DataFrame
+        One row per injection (or per injection and template overtone count)
+        with ``injected_overtones``, ``template_overtones``,
+        ``supported_overtones`` and ``by``.
+    max_overtones : int
+        Largest overtone count the evidence compared.
+    by, edges, confidence, method :
+        As for :func:`efficiency_table`.
+    population : str
+        Label stored in the ``population`` column (e.g. ``"all"``, ``"found"``).
+
+    Returns
+    -------
+    DataFrame with columns :data:`OVERTONE_EFFICIENCY_COLUMNS`.
+
+    Examples
+    --------
+    >>> df = pd.DataFrame({"injected_overtones": 1, "template_overtones": -1,
+    ...                    "supported_overtones": [0, 1, 1, 0], "network_snr": [5, 6, 30, 31]})
+    >>> t = overtone_efficiency_table(df, 1, "network_snr", np.array([0, 10, 40]))
+    >>> t["efficiency"].tolist()
+    [0.5, 0.5]
+    """
+    ok = rows[rows["supported_overtones"].to_numpy(float) >= 0]
+    frames = []
+    for k in range(1, int(max_overtones) + 1):
+        marked = ok.assign(found=ok["supported_overtones"].to_numpy(int) >= k)
+        t = efficiency_table(marked, by, edges, confidence, method)
+        t = t.rename(columns={"n_found": "n_supported"})
+        t["required_overtones"] = k
+        t["population"] = population
+        frames.append(t)
+    if not frames or all(f.empty for f in frames):
+        return pd.DataFrame(columns=OVERTONE_EFFICIENCY_COLUMNS)
+    out = pd.concat([f for f in frames if not f.empty], ignore_index=True)
+    return out[OVERTONE_EFFICIENCY_COLUMNS]
 
 
 def fit_sigmoid(x, found) -> dict:

@@ -29,6 +29,16 @@ Tables written (all atomically):
     the pooled time-slide background statistic per template overtone count.
 ``threshold.csv``, ``efficiency.csv``, ``sigmoid.csv``, ``sensitivity.csv``,
 ``summary.json``.
+``overtone_efficiency.csv`` (only with ``[overtones] enabled = true``)
+    overtone-recovery efficiency in bins of network optimal SNR: per injected
+    overtone count and required count k, the fraction of injections whose
+    evidence supports at least k overtones (``supported_overtones >= k``),
+    with the same binomial intervals as ``efficiency.csv``.  Population
+    ``all``: every analysed injection (``template_overtones`` = -1, the
+    evidence does not depend on the search); population ``found``: the found
+    injections, per template overtone count.  The evidence columns
+    (``supported_overtones``, ``log10_bayes_<k>_<k-1>``, ``evidence_*``) are
+    in ``injections.parquet`` and ``found.parquet``.
 """
 
 from __future__ import annotations
@@ -43,10 +53,13 @@ import pandas as pd
 
 from ringsearch import __version__
 from ringsearch.campaign.efficiency import (
+    ALL_TEMPLATES,
     EFFICIENCY_COLUMNS,
+    OVERTONE_EFFICIENCY_COLUMNS,
     bin_edges,
     efficiency_table,
     fit_sigmoid,
+    overtone_efficiency_table,
     sensitive_volume,
 )
 from ringsearch.files import atomic_path, write_text
@@ -165,6 +178,40 @@ def accuracy_table(found: pd.DataFrame) -> pd.DataFrame:
                                        "n_found", "median", "lo90", "hi90"])
 
 
+def overtone_results(config: dict, injections: pd.DataFrame, found: pd.DataFrame
+                     ) -> tuple[pd.DataFrame, dict]:
+    """The overtone-recovery efficiency table and its ``summary.json`` entry.
+
+    Examples
+    --------
+    >>> table, entry = overtone_results(config, injections, found)  # doctest: +SKIP
+    """
+    ov = config["overtones"]
+    rep = config["report"]
+    n_max = ov["max_overtones"]
+    done = injections[injections["supported_overtones"].to_numpy(float) >= 0]
+    entry = {"max_overtones": n_max, "log10_bayes_threshold": ov["log10_bayes_threshold"],
+             "network": ov["network"], "start_offset_ms": ov["start_offset_ms"],
+             "n_analysed": int(len(done)), "n_not_analysed": int(len(injections) - len(done)),
+             "supported_fraction": {}}
+    if done.empty or not np.isfinite(done["network_snr"].to_numpy(float)).any():
+        return pd.DataFrame(columns=OVERTONE_EFFICIENCY_COLUMNS), entry
+    edges = bin_edges(done["network_snr"].to_numpy(float), rep["snr_bins"])
+    pooled = done.assign(template_overtones=ALL_TEMPLATES)
+    hits = found[found["found"].astype(bool)]
+    table = pd.concat([
+        overtone_efficiency_table(pooled, n_max, "network_snr", edges, rep["confidence"],
+                                  rep["ci_method"], population="all"),
+        overtone_efficiency_table(hits, n_max, "network_snr", edges, rep["confidence"],
+                                  rep["ci_method"], population="found"),
+    ], ignore_index=True)
+    for n_inj, g in done.groupby("injected_overtones"):
+        sup = g["supported_overtones"].to_numpy(int)
+        for k in range(1, n_max + 1):
+            entry["supported_fraction"][f"{int(n_inj)}:>={k}"] = float(np.mean(sup >= k))
+    return table, entry
+
+
 def _json_safe(value):
     """Plain JSON: numpy scalars to Python, NaN/inf to null."""
     if isinstance(value, dict):
@@ -222,6 +269,11 @@ def assemble(out: str | Path) -> dict:
     for c in ("distance_mpc", "f_0_hz", "tau_0_s", "arrival_gps"):
         if c in injections.columns:
             truth_cols.append(c)
+    overtones_on = bool(config.get("overtones", {}).get("enabled"))
+    if overtones_on:  # the per-injection evidence goes into found.parquet too
+        truth_cols += [c for c in injections.columns
+                       if c == "supported_overtones" or c.startswith("log10_bayes_")
+                       or c.startswith("evidence_")]
     truth = injections[truth_cols].rename(columns={"gps": "true_gps", "mass": "true_mass",
                                                    "spin": "true_spin", "f_0_hz": "true_f_hz",
                                                    "tau_0_s": "true_tau_s"})
@@ -279,6 +331,10 @@ def assemble(out: str | Path) -> dict:
     _write_csv(sigmoid, out / "sigmoid.csv")
     _write_csv(sensitivity, out / "sensitivity.csv")
     _write_csv(accuracy, out / "accuracy.csv")
+    overtone_entry = None
+    if overtones_on:
+        ov_table, overtone_entry = overtone_results(config, injections, found)
+        _write_csv(ov_table, out / "overtone_efficiency.csv")
 
     status_cpu = 0.0
     status_wall = 0.0
@@ -305,5 +361,7 @@ def assemble(out: str | Path) -> dict:
                            found.groupby(["injected_overtones", "template_overtones"])
                            ["found"].mean().items()},
     }
+    if overtone_entry is not None:
+        summary["overtones"] = overtone_entry
     write_text(out / "summary.json", json.dumps(_json_safe(summary), indent=2))
     return summary

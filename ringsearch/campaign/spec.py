@@ -40,6 +40,11 @@ Example campaign file::
 
     [threshold]
     snr = 7.0
+
+    [overtones]            # optional: overtone-count evidence per injection
+    enabled = true
+    max_overtones = 2
+    log10_bayes_threshold = 0.5
 """
 
 from __future__ import annotations
@@ -115,6 +120,11 @@ class CampaignSpec:
     @property
     def report(self) -> dict:
         return self.config["report"]
+
+    @property
+    def overtones(self) -> dict:
+        """The ``[overtones]`` settings; ``{"enabled": False}`` when the table is absent."""
+        return self.config.get("overtones", {"enabled": False})
 
     @property
     def detectors(self) -> list[str]:
@@ -464,6 +474,47 @@ def _read_report(t: _Table, origin: str) -> dict:
     return r
 
 
+#: Jeffreys' "substantial" evidence, log10 B > 1/2 (Jeffreys, Theory of Probability,
+#: 3rd ed. 1961, appendix B -- # common practice); the analysis layer's default too.
+DEFAULT_LOG10_BAYES_THRESHOLD = 0.5
+
+
+def _read_overtones(t: _Table, origin: str, search: dict) -> dict | None:
+    """The optional ``[overtones]`` table: overtone-count evidence per injection.
+
+    Returns None when evidence is disabled (the default), so that a campaign
+    without the table keeps the configuration hash it always had.  The keys
+    are validated even when disabled.
+    """
+    ev: dict[str, Any] = {"enabled": t.boolean("enabled", False)}
+    ev["max_overtones"] = t.number("max_overtones", 2, lo=1, hi=7, integer=True)
+    ev["log10_bayes_threshold"] = t.number("log10_bayes_threshold",
+                                           DEFAULT_LOG10_BAYES_THRESHOLD, lo=-10, hi=100)
+    grid = t.raw("grid", [15, 15])
+    if isinstance(grid, int) and not isinstance(grid, bool):
+        grid = [grid, grid]
+    if not isinstance(grid, list) or len(grid) != 2:
+        raise InputError(f"'overtones.grid' in {origin} must be [n_mass, n_spin], "
+                         f"not {grid!r}.")
+    ev["grid"] = [_check_number(g, "overtones.grid", origin, lo=3, hi=400, integer=True)
+                  for g in grid]
+    ev["mass"] = _range(t.raw("mass", list(search["mass"])), "overtones.mass", origin,
+                        lo=0, lo_open=True)
+    ev["spin"] = _range(t.raw("spin", list(search["spin"])), "overtones.spin", origin,
+                        lo=0, hi=1, hi_open=True)
+    for name in ("mass", "spin"):
+        if ev["enabled"] and ev[name][0] >= ev[name][1]:
+            raise InputError(f"'overtones.{name}' in {origin} must be a range with low below "
+                             f"high, not {ev[name]!r} (it defaults to 'search.{name}'; set it "
+                             f"when the search box is a single point).")
+    ev["start_offset_ms"] = t.number("start_offset_ms", 0.0, lo=-100, hi=100)
+    ev["duration_s"] = t.number("duration_s", None, lo=0.005, hi=4.0)
+    ev["amplitude_prior_snr"] = t.number("amplitude_prior_snr", 10.0, lo=0, lo_open=True)
+    ev["network"] = t.string("network", "independent", choices=("independent", "coherent"))
+    t.finish()
+    return ev if ev["enabled"] else None
+
+
 def spec_from_dict(raw: dict, origin: str = "<dict>", base: str | Path = ".",
                    text: str = "") -> CampaignSpec:
     """Validate a campaign given as a nested dict (the parsed TOML).
@@ -508,6 +559,9 @@ def spec_from_dict(raw: dict, origin: str = "<dict>", base: str | Path = ".",
     config["search"] = _read_search(top.sub("search"), origin)
     config["threshold"] = _read_threshold(top.sub("threshold"), origin)
     config["report"] = _read_report(top.sub("report", {}), origin)
+    overtones = _read_overtones(top.sub("overtones", {}), origin, config["search"])
+    if overtones is not None:
+        config["overtones"] = overtones
     top.finish()
     _cross_checks(config, origin)
     canonical = json.dumps(config, sort_keys=True, separators=(",", ":"))

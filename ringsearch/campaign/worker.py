@@ -25,7 +25,10 @@ always give the same tables:
    background: the other detectors' series shifted by multiples of
    ``threshold.slide_step_s`` (circularly within the chunk), maximised in
    blocks the length of the match window, away from injections and avoided
-   windows.
+   windows;
+7. optionally (``[overtones] enabled = true``) the overtone-count evidence
+   of every injection (:func:`ringsearch.analysis.pipeline.candidate_evidence`
+   at its arrival time, in the injected strain with the chunk's PSDs).
 
 Only the few ``_search_*`` functions below touch the search layer's API.
 """
@@ -63,9 +66,10 @@ def _support(dist: dict) -> tuple[float, float]:
 def prepare(config: dict) -> None:
     """Checks that need the physics and the search, run once before any chunk.
 
-    Every injected mode must lie below the Nyquist frequency, and every
-    template bank must build within ``search.max_templates`` (the banks are
-    cached, so an in-process run reuses them).  Raises InputError naming the key.
+    Every injected mode must lie below the Nyquist frequency, the overtone
+    evidence's spin box must lie in the QNM table, and every template bank
+    must build within ``search.max_templates`` (the banks are cached, so an
+    in-process run reuses them).  Raises InputError naming the key.
     """
     from ringsearch.physics.qnm import mode_f_tau
 
@@ -79,6 +83,14 @@ def prepare(config: dict) -> None:
         raise InputError(f"'injections.mass' down to {m_lo} Msun with spin {chi_hi} puts a "
                          f"mode at {f_max:.0f} Hz, above the Nyquist frequency {fs / 2:g} Hz "
                          f"of 'data.sample_rate'.")
+    ov = config.get("overtones")
+    if ov and ov["enabled"]:
+        from ringsearch.analysis.posterior import kerr22_spin_range
+
+        lo, hi = kerr22_spin_range()
+        if not lo <= ov["spin"][0] < ov["spin"][1] <= hi:
+            raise InputError(f"'overtones.spin' = {ov['spin']} lies outside the QNM table's "
+                             f"range [{lo:g}, {hi:.4g}] for (2,2,n) modes.")
     f_high = config["search"]["f_high"] or 0.8 * fs / 2
     for n in config["search"]["template_overtones"]:
         _search_bank(config, n, f_high)
@@ -221,20 +233,78 @@ def make_sources(config: dict, injections: pd.DataFrame, psds: dict, f_high: flo
 
 
 def inject(strain, sources, det: str):
-    """A copy of ``strain`` with every source's signal at detector ``det`` added."""
-    out = strain.copy()
-    fs = float(strain.sample_rate.value)
-    t0 = float(strain.t0.value)
-    values = out.value
+    """A copy of ``strain`` with every source's signal at detector ``det`` added.
+
+    Delegates to :func:`ringsearch.data.inject.inject`, which evaluates each
+    signal at times relative to the strain's start (no precision lost to
+    1e9-second GPS values) and leaves samples outside every signal untouched.
+    """
+    from ringsearch.data.inject import inject as add_signals
+
+    return add_signals(strain, sources, det)
+
+
+# --------------------------------------------------------------------------- overtone evidence
+
+
+def evidence_columns(max_overtones: int) -> list[str]:
+    """Per-injection columns the overtone evidence adds to the ``injections`` table."""
+    return (["supported_overtones"]
+            + [f"log10_bayes_{k}_{k - 1}" for k in range(1, max_overtones + 1)]
+            + ["evidence_mass", "evidence_spin", "evidence_t0_gps", "evidence_note"])
+
+
+def overtone_evidence_rows(config: dict, sources: list, strains: dict, psds: dict,
+                           f_high: float) -> list[dict]:
+    """Overtone-count evidence for every injection of a chunk (``[overtones]`` settings).
+
+    Each injection is analysed in the injected strain (noise plus every
+    signal of the chunk) with the chunk's PSDs, starting at its arrival time
+    in each detector plus ``overtones.start_offset_ms`` (the detectors'
+    arrival-time differences are passed as time shifts, so every detector's
+    segment starts at its own arrival).  One noise-model cache serves the
+    whole chunk.  Evidence is computed for every injection, found or not: it
+    does not depend on the search, and the results layer reports both all
+    injections and the found ones.  An injection the analysis refuses (e.g.
+    too near a data edge) gets ``supported_overtones = -1`` and the reason in
+    ``evidence_note``.
+    """
+    from ringsearch.analysis.pipeline import candidate_evidence
+
+    ov = config["overtones"]
+    dets = list(config["data"]["detectors"])
+    n_max = ov["max_overtones"]
+    cache: dict = {}
+    rows = []
     for src in sources:
-        start, end = src.support(det)
-        i0 = max(int(math.ceil((start - t0) * fs - 1e-9)), 0)
-        i1 = min(int(math.ceil((end - t0) * fs)), values.size)
-        if i1 <= i0:
-            continue
-        times = t0 + np.arange(i0, i1) / fs
-        values[i0:i1] += src.detector_strain(det, times)
-    return out
+        arrival = {d: src.arrival_time(d) for d in dets}
+        t0 = arrival[dets[0]] + ov["start_offset_ms"] / 1e3
+        shifts = {d: arrival[d] - arrival[dets[0]] for d in dets}
+        antenna = ({d: tuple(map(float, src.antenna_pattern(d))) for d in dets}
+                   if ov["network"] == "coherent" else None)
+        row: dict = {"supported_overtones": -1, "evidence_t0_gps": t0,
+                     **{f"log10_bayes_{k}_{k - 1}": math.nan for k in range(1, n_max + 1)},
+                     "evidence_mass": math.nan, "evidence_spin": math.nan, "evidence_note": ""}
+        try:
+            ev = candidate_evidence(
+                strains, t0, tuple(ov["mass"]), tuple(ov["spin"]), n_max, psds=psds,
+                grid=tuple(ov["grid"]), duration=ov["duration_s"],
+                f_low=config["data"]["f_low"], f_high=f_high,
+                threshold=ov["log10_bayes_threshold"],
+                amp_prior_snr=ov["amplitude_prior_snr"], time_shifts=shifts, cache=cache,
+                antenna=antenna)
+        except InputError as exc:
+            row["evidence_note"] = f"not analysed: {exc}"
+        else:
+            row["supported_overtones"] = int(ev["supported_overtones"])
+            for key, value in ev["log10_bayes"].items():
+                k, k1 = key.split(":")
+                row[f"log10_bayes_{k}_{k1}"] = float(value)
+            row["evidence_mass"] = float(ev["mass"]["median"])
+            row["evidence_spin"] = float(ev["spin"]["median"])
+            row["evidence_note"] = " ".join(ev.get("warnings", []))
+        rows.append(row)
+    return rows
 
 
 # --------------------------------------------------------------------------- search adapter
@@ -370,7 +440,8 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     """Inject, search and match one chunk; returns the tables ``results.assemble`` reads.
 
     Tables: ``injections`` (optimal SNRs per detector and network, derived
-    distance, true f and tau), ``found`` (best statistic near each
+    distance, true f and tau; with ``[overtones]`` enabled also the overtone
+    evidence, see :func:`overtone_evidence_rows`), ``found`` (best statistic near each
     injection, per template overtone count, with the template's mass, spin,
     f, tau), ``background`` (time-slide statistic maxima) and ``livetime``.
 
@@ -388,9 +459,14 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     raw = chunk_strain(config, chunk)
     psds = chunk_psds(config, raw)
     sources, inj_table = make_sources(config, injections, psds, f_high)
+    injected = {det: inject(raw[det], sources, det) for det in dets}
+    if config.get("overtones", {}).get("enabled"):
+        evidence = pd.DataFrame(overtone_evidence_rows(config, sources, injected, psds, f_high),
+                                columns=evidence_columns(config["overtones"]["max_overtones"]))
+        inj_table = pd.concat([inj_table, evidence], axis=1)
     conds = []
     for det in dets:
-        conds.append(condition(inject(raw[det], sources, det), f_low=data["f_low"],
+        conds.append(condition(injected[det], f_low=data["f_low"],
                                f_high=f_high, psd=psds[det], seglen=data["psd_seglen_s"],
                                gate_threshold=None if data["gating"] else math.inf))
     ref = conds[0]

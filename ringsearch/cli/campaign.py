@@ -14,6 +14,11 @@ examples:
   ringsearch campaign status out/quick
   ringsearch campaign report out/quick
   ringsearch campaign run injections/cluster.toml --out out/big --scheduler tcp://head:8786
+  ringsearch campaign run injections/overtones.toml --out out/ov --workers 2 --report
+
+An [overtones] table in the campaign file (enabled = true) adds the evidence for
+each overtone count per injection and overtone_efficiency.csv: the fraction of
+injections whose data support at least k overtones, against SNR.
 
 Running 'campaign run' again on the same folder resumes: finished chunks are
 kept, and a campaign file that changed since the first run is refused.
@@ -28,7 +33,8 @@ def register(subparsers) -> None:
             "Injection campaigns: draw ringdowns with a chosen number of overtones from a "
             "TOML campaign file, inject them into synthetic or recorded strain, search for "
             "them with templates of each overtone count, and report efficiency curves, "
-            "sensitive distance and parameter recovery."),
+            "sensitive distance, parameter recovery and (optionally) how often the data "
+            "support the injected overtones."),
         epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     sub = parser.add_subparsers(dest="action", metavar="ACTION")
     sub.required = True
@@ -72,7 +78,10 @@ def _run(args) -> int:
                           progress=not args.no_progress)
     print(f"campaign '{status['name']}': {status['chunks_done']}/{status['n_chunks']} chunks, "
           f"{status['injections_done']} injections, {time.perf_counter() - start:.1f} s")
-    print(f"tables in {args.out} (injections.parquet, found.parquet, efficiency.csv)")
+    tables = "injections.parquet, found.parquet, efficiency.csv"
+    if spec.overtones["enabled"]:
+        tables += ", overtone_efficiency.csv"
+    print(f"tables in {args.out} ({tables})")
     if args.report:
         from ringsearch.report import make_report
 

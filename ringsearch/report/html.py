@@ -45,6 +45,12 @@ CAPTIONS = {
     "efficiency_distance": "Detection efficiency against luminosity distance.",
     "found_missed": "Found (circles) and missed (crosses) injections.",
     "recovered": "Recovered against injected parameters for found injections; dashed: equality.",
+    "overtone_efficiency": "Overtone recovery against the injections' network optimal SNR: "
+                           "the fraction of injections whose data support at least k "
+                           "overtones (each added overtone's log10 Bayes factor above the "
+                           "campaign's threshold), per injected overtone count; every "
+                           "analysed injection, found or not; error bars: binomial "
+                           "confidence intervals.",
     "background": "Time-slide background of the ranking statistic and the detection "
                   "threshold (dashed).",
 }
@@ -110,6 +116,7 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
     thresholds = _read_csv(out / "threshold.csv")
     accuracy = _read_csv(out / "accuracy.csv")
     efficiency = _read_csv(out / "efficiency.csv")
+    overtones = _read_csv(out / "overtone_efficiency.csv")
 
     e = html.escape
     name = summary.get("name", "campaign")
@@ -164,6 +171,23 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
         parts.append(f"<figure>{_img(figures['recovered'])}<figcaption>"
                      f"{e(CAPTIONS['recovered'])}</figcaption></figure>")
     parts.append(_table(accuracy))
+    ov = summary.get("overtones")
+    if ov is not None:
+        parts.append("<h2>Overtone recovery</h2>")
+        parts.append(
+            f"<p>Evidence for N = 0..{e(str(ov.get('max_overtones')))} overtones at each "
+            f"injection's arrival time (offset {e(str(ov.get('start_offset_ms')))} ms, "
+            f"{e(str(ov.get('network')))} amplitudes per detector); an overtone counts as "
+            f"supported when log10 B(N:N-1) exceeds {e(str(ov.get('log10_bayes_threshold')))}. "
+            f"Analysed: {e(str(ov.get('n_analysed')))} injections; not analysed: "
+            f"{e(str(ov.get('n_not_analysed')))}. Population <code>all</code>: every analysed "
+            "injection (template count -1); <code>found</code>: found injections per template "
+            "overtone count. Also in <code>overtone_efficiency.csv</code>.</p>")
+        if "overtone_efficiency" in figures:
+            parts.append(f"<figure>{_img(figures['overtone_efficiency'])}<figcaption>"
+                         f"{e(CAPTIONS['overtone_efficiency'])}</figcaption></figure>")
+        parts.append(_table(overtones.drop(columns=["confidence", "ci_method", "binned_by"],
+                                           errors="ignore")))
     parts.append("<h2>Background</h2>")
     if "background" in figures:
         parts.append(f"<figure>{_img(figures['background'])}<figcaption>"

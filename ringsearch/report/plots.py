@@ -89,6 +89,46 @@ def efficiency_curves(efficiency: pd.DataFrame, sigmoid: pd.DataFrame, by: str,
     return _save_both(fig, stem)
 
 
+def overtone_efficiency_curves(table: pd.DataFrame, stem: Path,
+                               population: str = "all") -> Path | None:
+    """Overtone-recovery efficiency against network optimal SNR.
+
+    One panel per required overtone count k (fraction of injections whose
+    evidence supports at least k overtones), one curve per injected overtone
+    count, binomial intervals as error bars.  ``population`` picks the rows
+    of ``overtone_efficiency.csv`` (``"all"`` analysed injections by default).
+
+    Examples
+    --------
+    >>> overtone_efficiency_curves(table, Path("fig/overtone_efficiency"))  # doctest: +SKIP
+    """
+    if table is None or table.empty or "population" not in table:
+        return None
+    table = table[(table["population"] == population) & (table["binned_by"] == "network_snr")]
+    if table.empty:
+        return None
+    required = sorted(table["required_overtones"].unique())
+    injected = sorted(table["injected_overtones"].unique())
+    fig, axes = _panels(len(required))
+    for ax, k in zip(axes, required, strict=True):
+        for i, n_inj in enumerate(injected):
+            g = table[(table["required_overtones"] == k)
+                      & (table["injected_overtones"] == n_inj)].sort_values("bin_lo")
+            if g.empty:
+                continue
+            x = g["bin_centre"].to_numpy(float)
+            y = g["efficiency"].to_numpy(float)
+            err = np.vstack([y - g["ci_lo"].to_numpy(float), g["ci_hi"].to_numpy(float) - y])
+            ax.errorbar(x, y, yerr=err, fmt="o-", ms=4, lw=1, color=colour(i), capsize=2,
+                        label=f"{n_inj} overtone{'s' if n_inj != 1 else ''} injected")
+        ax.set_title(f"at least {k} overtone{'s' if k != 1 else ''} supported")
+        ax.set_xlabel(LABELS["network_snr"])
+        ax.set_ylim(-0.03, 1.03)
+    axes[0].set_ylabel("fraction with >= k overtones supported")
+    axes[0].legend(loc="best", fontsize="small")
+    return _save_both(fig, stem)
+
+
 def found_missed(found: pd.DataFrame, stem: Path) -> Path | None:
     """Found and missed injections in the (distance, mass) plane, a panel per template
     overtone count (network SNR replaces distance when distances are unknown)."""
@@ -195,4 +235,7 @@ def make_figures(out: str | Path, folder: str | Path | None = None) -> dict[str,
         "recovered": recovered_vs_injected(found, folder / "recovered"),
         "background": background(bg, th, folder / "background", years),
     }
+    if (out / "overtone_efficiency.csv").exists():
+        made["overtone_efficiency"] = overtone_efficiency_curves(
+            read_csv_or_empty(out / "overtone_efficiency.csv"), folder / "overtone_efficiency")
     return {k: v for k, v in made.items() if v is not None}
