@@ -27,9 +27,7 @@ from __future__ import annotations
 
 import json
 import os
-import shutil
 import sys
-import tempfile
 import time
 from collections.abc import Callable
 from importlib import import_module
@@ -42,7 +40,7 @@ from ringsearch import __version__
 from ringsearch.campaign.draw import plan_campaign
 from ringsearch.campaign.spec import CampaignSpec
 from ringsearch.errors import InputError
-from ringsearch.files import atomic_path, write_text
+from ringsearch.files import atomic_path, staged_directory, write_text
 
 #: A worker: (config dict, chunk row dict, the chunk's injections) -> named tables.
 Worker = Callable[[dict, dict, pd.DataFrame], dict[str, pd.DataFrame]]
@@ -138,21 +136,13 @@ def prepare_output(spec: CampaignSpec, out: str | Path,
         "source": spec.source,
     }
     # Build in a hidden sibling and move it into place: the folder appears whole.
-    out.parent.mkdir(parents=True, exist_ok=True)
-    stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".partial", dir=out.parent))
-    try:
+    with staged_directory(out) as stage:
         (stage / "plan").mkdir()
         (stage / "chunks").mkdir()
         chunks.to_parquet(stage / "plan" / "chunks.parquet", index=False)
         injections.to_parquet(stage / "plan" / "injections.parquet", index=False)
         (stage / "campaign.toml").write_text(spec.text or "")
         (stage / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True))
-        if out.exists():
-            out.rmdir()
-        os.replace(stage, out)
-    except BaseException:
-        shutil.rmtree(stage, ignore_errors=True)
-        raise
     return manifest
 
 
