@@ -22,12 +22,12 @@ from ringsearch.errors import InputError
 #: Subcommand modules, in the order --help lists them.
 _COMMANDS: list[str] = [
     "spectrum",
-    "search",
-    "campaign",
-    "condition",
     "noise",
+    "condition",
     "inject",
+    "search",
     "analyse",
+    "campaign",
 ]
 
 
