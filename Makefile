@@ -12,7 +12,7 @@ $(BIN)/python:
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
 $(STAMP): pyproject.toml | $(BIN)/python
-	$(BIN)/python -m pip install --quiet -e ".[test,cluster]"
+	$(BIN)/python -m pip install --quiet -e ".[test,cluster,frames]"
 	touch $(STAMP)
 
 demo: $(STAMP)

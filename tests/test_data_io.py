@@ -250,17 +250,37 @@ def test_too_short_for_psd_segment(tmp_path):
         estimate_psd(read_strain(path), seglen=4.0)
 
 
-def test_gwf_without_frame_library_names_the_extra(tmp_path):
-    pytest.importorskip("h5py")
-    try:
-        import lal  # noqa: F401
-        pytest.skip("a frame library is installed here")
-    except ImportError:
-        pass
+def test_gwf_without_frame_library_names_the_extra(tmp_path, monkeypatch):
+    """Without a frame library the error names the extra to install."""
+    import sys
+
+    for name in ("lalframe", "framel", "LDAStools"):   # makes each import fail
+        monkeypatch.setitem(sys.modules, name, None)
     frame = tmp_path / "H-H1_SIM-0-4.gwf"
     frame.write_bytes(b"IGWD" + b"\0" * 100)
     with pytest.raises(InputError, match="'frames' extra"):
         read_strain(frame)
+
+
+def test_gwf_round_trip_through_frame_library(tmp_path):
+    """A GWF frame written by gwpy reads back sample for sample, detector from the channel."""
+    pytest.importorskip("lalframe", reason="the 'frames' extra is not installed")
+    from gwpy.timeseries import TimeSeries
+
+    values = np.random.default_rng(5).normal(size=4096 * 4) * 1e-21
+    original = TimeSeries(values, sample_rate=4096, t0=1_000_000_000,
+                          name="L1:GDS-CALIB_STRAIN", channel="L1:GDS-CALIB_STRAIN")
+    path = tmp_path / "frame-1000000000-4.gwf"   # no detector in the file name
+    original.write(str(path))
+    strain = read_strain(path)
+    assert strain.name == "L1"
+    assert float(strain.t0.value) == 1_000_000_000
+    assert float(strain.sample_rate.value) == 4096
+    np.testing.assert_array_equal(strain.value, values)
+    broken = tmp_path / "H-H1_BROKEN-0-4.gwf"
+    broken.write_bytes(path.read_bytes()[:200])
+    with pytest.raises(InputError, match="truncated or corrupt"):
+        read_strain(broken)
 
 
 def test_write_rejects_bad_masks(tmp_path, sim):

@@ -218,7 +218,55 @@ def _resolve_detector(path: Path, given: str | None, from_file: str | None) -> s
                      "give the detector explicitly (e.g. detector='H1').")
 
 
+#: Run in a child process before a GWF file is opened in ours: the frame
+#: library crashes the interpreter (segmentation fault) on truncated or corrupt
+#: frames instead of raising, so a bad file must not be opened in-process first.
+_GWF_PROBE = """
+import sys
+from gwpy.io.gwf import iter_channel_names
+from gwpy.timeseries import TimeSeries
+names = list(iter_channel_names(sys.argv[1]))
+strain = [n for n in names if "STRAIN" in n.upper()] or names
+if strain:
+    TimeSeries.read(sys.argv[1], strain[0], format="gwf")
+"""
+
+
+def _have_frame_library() -> bool:
+    """Whether one of the frame libraries gwpy can use is importable."""
+    from importlib import import_module
+
+    for name in ("lalframe", "framel", "LDAStools.frameCPP"):
+        try:
+            import_module(name)
+            return True
+        except ImportError:
+            continue
+    return False
+
+
+def _probe_gwf(path: Path) -> None:
+    """Raise InputError if reading ``path`` crashes the frame library."""
+    import subprocess
+    import sys
+
+    try:
+        result = subprocess.run([sys.executable, "-c", _GWF_PROBE, str(path)],
+                                capture_output=True, timeout=300, check=False)
+    except subprocess.TimeoutExpired:
+        raise InputError(f"GWF frame file {path} could not be read within 5 minutes.") from None
+    if result.returncode < 0:
+        raise InputError(f"GWF frame file {path} is truncated or corrupt (the frame "
+                         "library crashed reading it).")
+
+
 def _read_gwf(path: Path, detector: str | None) -> _FileStrain:
+    if not _have_frame_library():
+        raise InputError(
+            f"reading the GWF frame file {path} needs a frame library; install the "
+            "'frames' extra (pip install 'ringsearch[frames]')."
+        )
+    _probe_gwf(path)
     try:
         from gwpy.io.gwf import iter_channel_names
         from gwpy.timeseries import TimeSeries
