@@ -58,6 +58,22 @@ def test_dead_scheduler_exits_2(tmp_path, capsys, monkeypatch):
     code = main(["campaign", "run", str(path), "--out", str(tmp_path / "o"),
                  "--scheduler", "tcp://127.0.0.1:9"])
     assert code == 2 and "did not answer" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()  # nothing written before the scheduler answered
+
+
+def test_folders_that_hold_no_campaign_exit_2(tmp_path, capsys):
+    busy = tmp_path / "busy"
+    busy.mkdir()
+    (busy / "notes.txt").write_text("mine")
+    for argv in (["campaign", "status", str(busy)], ["campaign", "report", str(busy)]):
+        assert main(argv) == 2
+        err = capsys.readouterr().err
+        assert "not a campaign output folder" in err and len(err.splitlines()) == 1
+    path = tmp_path / "c.toml"
+    path.write_text(TOML)
+    assert main(["campaign", "run", str(path), "--out", str(busy)]) == 2
+    assert "holds no campaign" in capsys.readouterr().err
+    assert sorted(p.name for p in busy.iterdir()) == ["notes.txt"]  # left untouched
 
 
 def test_other_campaign_in_folder_exits_2(tmp_path, capsys):

@@ -80,6 +80,16 @@ def test_volume_is_euclidean_nearby_and_smaller_far_away():
     # than the Euclidean volume of the luminosity-distance sphere (d_C = d_L / (1+z)).
     assert np.isclose(comoving_volume_mpc3(10.0), 4 / 3 * np.pi * 1e3, rtol=1e-2)
     assert comoving_volume_mpc3(1000.0) < 4 / 3 * np.pi * 1e9
+    # At 100 Mpc against the second-order Hubble law d_L = (c/H0)(z + (1 - q0) z^2 / 2)
+    # (Weinberg 1972, Gravitation and Cosmology, ch. 14) with the Planck 2018
+    # parameters H0 = 67.66 km/s/Mpc, Omega_m = 0.3111 (Planck Collaboration 2020, A&A
+    # 641, A6, TT,TE,EE+lowE+lensing+BAO) # from memory; q0 = Omega_m/2 - Omega_L.
+    # Third-order terms are ~1e-5; a volume of the d_L sphere (no 1/(1+z)) is 6.6 % off.
+    h0, om, c_kms = 67.66, 0.3111, 299792.458
+    x = h0 * 100.0 / c_kms
+    z = x - (1 - (om / 2 - (1 - om))) / 2 * x**2
+    assert np.isclose(comoving_volume_mpc3(100.0), 4 / 3 * np.pi * (100.0 / (1 + z))**3,
+                      rtol=1e-3)
     t = pd.DataFrame({"bin_lo": [0.0, 50.0], "bin_hi": [50.0, 100.0],
                       "efficiency": [1.0, 0.5], "n_injected": [100, 100]})
     v = sensitive_volume(t)

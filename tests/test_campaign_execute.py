@@ -161,3 +161,14 @@ template_overtones = [0, 1]
 [threshold]
 far_per_year = 100.0
 """
+
+
+def test_dead_worker_process_is_one_sentence_and_resumable(tmp_path):
+    # regression: a killed pool process ended `campaign run` in a BrokenProcessPool traceback
+    out = tmp_path / "out"
+    with pytest.raises(InputError, match="worker process .* died"):
+        run_campaign(small_spec(), out, worker="campaign_fake_worker:dying_chunk", workers=2,
+                     progress=False)
+    run_campaign(small_spec(), out, worker=FAKE, progress=False)  # resumes with a good worker
+    run_campaign(small_spec(), tmp_path / "ref", worker=FAKE, progress=False)
+    assert_same_results(out, tmp_path / "ref")

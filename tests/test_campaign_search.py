@@ -161,7 +161,7 @@ def test_open_data_campaign_rises_from_zero_to_one(gw150914_files, tmp_path):
 
 
 def test_gated_injections_count_as_missed(tmp_path):
-    # SNR 400 ringdowns trip the conditioning's gate (12 sigma per whitened sample):
+    # SNR 400 ringdowns trip the conditioning's gate (default 100 whitened-noise sigma):
     # the search cannot find them, and the efficiency must say so instead of
     # silently dropping them.
     import copy

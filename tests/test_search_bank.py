@@ -52,7 +52,7 @@ def test_coverage_at_least_99_percent(full_bank):
 
 def test_closed_form_inner_products_match_quadrature():
     # white_cross_gram uses int_0^inf e^{-at} cos(bt) dt = a/(a^2+b^2) (Gradshteyn & Ryzhik
-    # 3.893); check it against direct numerical quadrature of the products.
+    # 3.893) # from memory; check it against direct numerical quadrature of the products.
     fa, ta, fb, tb = 250.0, 0.004, 231.0, 0.0017
     g = white_cross_gram(np.array([fa]), np.array([ta]), np.array([fb]), np.array([tb]))
 
@@ -112,6 +112,8 @@ def test_save_load_roundtrip(tmp_path, full_bank):
     (dict(min_match=1.0), "minimal match"),
     (dict(min_match=0.0), "minimal match"),
     (dict(n_overtones=-1), "overtones"),
+    (dict(mass=(0.0, 10.0)), "positive"),  # regression: message named 0 as allowed
+    (dict(seed=-1), "seed"),  # regression: numpy's traceback escaped the CLI
 ])
 def test_bad_boxes_raise_one_sentence(kw, msg):
     with pytest.raises(InputError, match=msg):

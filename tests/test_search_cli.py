@@ -62,6 +62,12 @@ def test_search_writes_contract_outputs(gw150914_files, tmp_path, capsys):
     (["--gps-start", "1000000000", "--gps-end", "1000000010"], "outside"),
     (["--overtones", "-1"], "overtones"),
     (["--veto-bins", "1"], "veto bands"),
+    # regressions found in review: each used to pass silently or end in a traceback
+    (["--mass", "0:10"], "positive"),
+    (["--gps-start", "nan"], "--gps-start"),
+    (["--tolerance", "-1"], "timing tolerance"),
+    (["--slide-step", "nan"], "time-slide step"),
+    (["--seed", "-1"], "seed"),
 ])
 def test_bad_input_one_sentence_and_no_output(gw150914_files, tmp_path, capsys, extra, words):
     out = tmp_path / "bad"
@@ -87,3 +93,17 @@ def test_short_data_and_nonempty_out(tmp_path, capsys):
     (busy / "x").write_text("x")
     assert main(["search", str(txt), "--out", str(busy)]) == 2
     assert "not empty" in capsys.readouterr().err
+
+
+def test_bank_of_other_overtone_count_is_refused(tmp_path, capsys):
+    from ringsearch.search.bank import Bank
+
+    # refused before any data is read, so the data file need not exist
+    path = tmp_path / "bank.parquet"
+    Bank.from_points([60.0, 70.0], [0.6, 0.7], n_overtones=0).save(path)
+    out = tmp_path / "o"
+    assert main(["search", str(tmp_path / "absent.hdf5"), "--out", str(out), "--bank", str(path),
+                 "--overtones", "1"]) == 2
+    err = capsys.readouterr().err
+    assert "built for 0 overtone" in err and err.count("\n") == 1
+    assert not out.exists()

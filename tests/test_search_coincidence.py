@@ -33,6 +33,9 @@ def test_window_is_light_travel_plus_tolerance():
     assert c.network_snr.iloc[0] == pytest.approx(10.0)
     with pytest.raises(InputError, match="two detectors"):
         coincident_candidates({"H1": h})
+    for bad in (-0.001, float("nan")):  # regression: a negative window was accepted
+        with pytest.raises(InputError, match="timing tolerance"):
+            coincident_candidates({"H1": h, "L1": l_in}, tolerance_s=bad)
 
 
 def _poisson_triggers(rng, rate, dur, t0=0.0):

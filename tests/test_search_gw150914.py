@@ -28,9 +28,9 @@ def test_gw150914_loudest_coincident_candidate(gw150914_files):
                      gps_end=GW150914_GPS + 1.0)
     best = res.summary["loudest_candidate"]
     assert set(best["detectors"]) == {"H1", "L1"}
-    # published merger GPS 1126259462.42 (Abbott et al. 2016, PRL 116, 061102)
+    # published merger GPS 1126259462.42 (Abbott et al. 2016, PRL 116, 061102) # from memory
     assert abs(best["gps"] - GW150914_GPS) < 0.020
-    # least-damped ringdown ~251 Hz (Abbott et al. 2016, PRL 116, 221101)
+    # least-damped ringdown ~251 Hz (Abbott et al. 2016, PRL 116, 221101) # from memory
     assert 200.0 <= best["template"]["f_hz"] <= 300.0
     assert best["network_snr"] > 12.0
     for det in ("H1", "L1"):

@@ -37,7 +37,7 @@ def _scaled(h: np.ndarray, snr: float) -> np.ndarray:
 def test_noise_only_chisq_follows_chi2_with_stated_dof(domain, f_hz, tau_s):
     # Derivation in ringsearch/search/veto.py: the residuals of the p pieces, whitened by
     # their exact noise covariance, are chi-squared with 2K(p-1) dof (Allen 2005, PRD 71,
-    # 062001, for K = 1: 2p - 2), fewer when a piece holds numerically degenerate
+    # 062001, for K = 1: 2p - 2; # from memory), fewer when a piece holds numerically degenerate
     # directions -- the dof the code reports is what is tested.  Start times 0.25 s apart
     # (template <= 0.24 s plus whitening filter) are independent enough.
     rng = np.random.default_rng(20261202)
@@ -166,8 +166,9 @@ def test_chirp_like_signals_get_large_chisq(domain, kind):
 
 
 def test_reweighting_form_and_bad_input():
-    # Babak et al. 2013 (PRD 87, 024033): unchanged for chi2_r <= 1, rho / 2^(-1/6)... at
-    # chi2_r = 1 continuous, ~ rho * 2^(1/6) / chi2_r^(1/2) for large chi2_r
+    # Babak et al. 2013 (PRD 87, 024033) # from memory: rho / [(1 + chi2_r^3)/2]^(1/6) for
+    # chi2_r > 1, unchanged for chi2_r <= 1 (continuous at 1), ~ rho * 2^(1/6) / chi2_r^(1/2)
+    # for large chi2_r
     r = reweighted_snr([10.0, 10.0, 10.0], [7.0, 14.0, 1400.0], [14, 14, 14])
     assert r[0] == 10.0 and r[1] == pytest.approx(10.0)
     assert r[2] == pytest.approx(10.0 * 2 ** (1 / 6) / 100 ** 0.5, rel=1e-5)

@@ -296,6 +296,13 @@ def _run_pool(workers: int, args, worker, out: Path, bar) -> None:
             for fut in cf.as_completed(futures):
                 save_chunk(out, fut.result())
                 bar.update(1)
+        except cf.process.BrokenProcessPool:
+            for f in futures:
+                f.cancel()
+            # not the user's input, but the CLI must still say one sentence, not a traceback
+            raise InputError(f"a worker process of the campaign in {out} died (killed, or "
+                             "out of memory); finished chunks are kept, so run the same "
+                             "command again to resume, perhaps with fewer --workers.") from None
         except BaseException:
             for f in futures:
                 f.cancel()

@@ -375,15 +375,11 @@ def _search_snr2(cond, f_hz: np.ndarray, tau_s: np.ndarray) -> np.ndarray:
 
 
 def _light_samples(dets: list[str], fs: float) -> list[int]:
-    from ringsearch.physics.detectors import get_detector
-    from ringsearch.physics.units import C_SI
+    """Light-travel window (plus ``COINC_SLOP_S``) from the first detector, in samples."""
+    from ringsearch.search.coincidence import light_travel_time
 
-    ref = np.asarray(get_detector(dets[0]).location, float)
-    out = []
-    for d in dets[1:]:
-        dist = float(np.linalg.norm(np.asarray(get_detector(d).location, float) - ref))
-        out.append(int(math.ceil((dist / C_SI + COINC_SLOP_S) * fs)))
-    return out
+    return [int(math.ceil((light_travel_time(dets[0], d) + COINC_SLOP_S) * fs))
+            for d in dets[1:]]
 
 
 def _window_max(x: np.ndarray, half: int) -> np.ndarray:

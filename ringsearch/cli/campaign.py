@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import textwrap
 import time
 
 from ringsearch.errors import InputError
@@ -25,6 +26,11 @@ kept, and a campaign file that changed since the first run is refused.
 """
 
 
+def _fill(text: str) -> str:
+    """Wrap a description for RawDescriptionHelpFormatter (which keeps epilog layout)."""
+    return textwrap.fill(text, width=79)
+
+
 def register(subparsers) -> None:
     parser = subparsers.add_parser(
         "campaign",
@@ -39,14 +45,28 @@ def register(subparsers) -> None:
     sub = parser.add_subparsers(dest="action", metavar="ACTION")
     sub.required = True
 
-    run = sub.add_parser("run", help="run or resume a campaign",
-                         description="Run a campaign, or resume it in an existing folder.",
-                         epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
-    run.add_argument("config", help="campaign file (TOML)")
-    run.add_argument("--out", required=True, help="output folder (created, or resumed)")
+    run = sub.add_parser(
+        "run", help="run or resume a campaign",
+        description=_fill(
+            "Run a campaign, or resume it in an existing folder.  The campaign file (TOML) "
+            "has the tables [campaign] (name, seed), [data] (synthetic noise from a PSD, or "
+            "strain files with 'avoid' windows), [injections] (count, overtone counts, mass in "
+            "detector-frame solar masses, spin, overtone ratios, loudness by network SNR or "
+            "distance in Mpc, spacing in s), [search] (template box, minimal match, template "
+            "overtone counts), [threshold] (snr, or far_per_year from the campaign's own time "
+            "slides), and optionally [report] and [overtones]; see injections/*.toml.  The "
+            "whole file is checked before any work starts.  Writes injections.parquet, "
+            "found.parquet, efficiency.csv, sigmoid.csv, sensitivity.csv and accuracy.csv "
+            "in --out."),
+        epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    run.add_argument("config", metavar="CAMPAIGN.toml", help="campaign file (TOML)")
+    run.add_argument("--out", required=True, metavar="DIR",
+                     help="output folder: new, empty, or an unfinished run of the same file "
+                          "(resumed)")
     where = run.add_mutually_exclusive_group()
-    where.add_argument("--workers", type=int, default=1,
-                       help="local worker processes (default 1)")
+    where.add_argument("--workers", type=int, default=1, metavar="N",
+                       help="local worker processes, each running one chunk at a time "
+                            "(default 1)")
     where.add_argument("--scheduler", metavar="ADDRESS",
                        help="address of a running Dask scheduler, e.g. tcp://host:8786")
     run.add_argument("--no-progress", action="store_true", help="hide the progress bar")
@@ -54,15 +74,28 @@ def register(subparsers) -> None:
                      help="also write the figures and report.html when the run finishes")
     run.set_defaults(func=_run)
 
-    status = sub.add_parser("status", help="how far a campaign is",
-                            description="Print how many chunks and injections are done.")
+    status = sub.add_parser(
+        "status", help="how far a campaign is",
+        description=_fill("Print how many chunks and injections of a campaign are done, and the "
+                     "CPU time spent in finished chunks (safe to run while the campaign runs)."),
+        epilog=("examples:\n  ringsearch campaign status out/quick\n"
+                "  ringsearch campaign status out/quick --json   # machine-readable"),
+        formatter_class=argparse.RawDescriptionHelpFormatter)
     status.add_argument("out", metavar="DIR", help="campaign output folder")
     status.add_argument("--json", action="store_true", help="print the status as JSON")
     status.set_defaults(func=_status)
 
-    report = sub.add_parser("report", help="figures, CSV tables and report.html",
-                            description="Write PNG/PDF figures and a self-contained "
-                                        "report.html for a finished campaign.")
+    report = sub.add_parser(
+        "report", help="figures, CSV tables and report.html",
+        description=_fill("Write PNG/PDF figures (DIR/figures/) and a self-contained report.html "
+                     "(images embedded, opens offline) for a finished campaign: efficiency "
+                     "against network SNR and distance per injected and template overtone "
+                     "count with binomial intervals, 50%/90% points, sensitive distance, "
+                     "parameter recovery and, with [overtones], overtone-recovery efficiency."),
+        epilog=("examples:\n  ringsearch campaign run injections/quick.toml --out out/quick "
+                "--workers 2\n  ringsearch campaign report out/quick   # writes "
+                "out/quick/report.html"),
+        formatter_class=argparse.RawDescriptionHelpFormatter)
     report.add_argument("out", metavar="DIR", help="campaign output folder")
     report.set_defaults(func=_report)
 

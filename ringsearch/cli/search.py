@@ -11,6 +11,7 @@ import argparse
 import json
 import math
 import sys
+import textwrap
 
 from ringsearch.errors import InputError
 
@@ -63,12 +64,14 @@ def register(subparsers) -> None:
     p = subparsers.add_parser(
         "search",
         help="search strain for black-hole ringdowns (matched filter, coincidence, FAR)",
-        description=(
+        description=textwrap.fill(
             "Search detector strain for black-hole ringdowns with a bank of Kerr templates "
             "carrying the (2,2,0..N) quasinormal modes: whiten the data, correlate every "
             "template, maximise the SNR over all mode amplitudes and phases, cluster "
             "triggers, find coincidences between detectors and rank them by false-alarm "
-            "rate from time slides (or, with one detector, from the data's own triggers)."),
+            "rate from time slides (or, with one detector, from the data's own triggers).  "
+            "Masses are detector-frame solar masses, times GPS seconds, frequencies Hz.",
+            width=79),
         epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
     p.add_argument("files", nargs="+", metavar="FILE",
                    help="strain files (GWOSC HDF5, GWF or text), one or more detectors")
@@ -80,14 +83,18 @@ def register(subparsers) -> None:
     p.add_argument("--mass", default="20:200", metavar="LO:HI",
                    help="remnant mass range, detector-frame solar masses (default 20:200)")
     p.add_argument("--spin", default="0:0.99", metavar="LO:HI",
-                   help="remnant spin range (default 0:0.99)")
-    p.add_argument("--overtones", type=int, default=0, metavar="N",
-                   help="overtones per template: modes (2,2,0..N) (default 0)")
+                   help="remnant dimensionless spin range, 0 <= LO < HI < 1 (default 0:0.99)")
+    p.add_argument("--overtones", type=int, default=None, metavar="N",
+                   help="overtones per template: modes (2,2,0..N), N from 0 to 7 (default 0, "
+                        "or the count of --bank)")
     p.add_argument("--min-match", type=float, default=0.97, metavar="MM",
                    help="minimal match of the bank, in (0, 1) (default 0.97)")
-    p.add_argument("--bank", metavar="FILE", help="reuse a bank saved by an earlier search")
+    p.add_argument("--bank", metavar="FILE",
+                   help="reuse a bank saved by an earlier search (its bank.parquet); "
+                        "--mass, --spin and --min-match are then not used")
     p.add_argument("--snr-threshold", type=float, default=5.0, metavar="X",
-                   help="projection-SNR threshold of triggers (default 5)")
+                   help="threshold on the projection SNR (dimensionless) for a trigger "
+                        "(default 5)")
     p.add_argument("--slides", type=int, default=100, metavar="K",
                    help="time slides for the background (default 100, capped by the data)")
     p.add_argument("--slide-step", type=float, metavar="S",
@@ -96,12 +103,14 @@ def register(subparsers) -> None:
     p.add_argument("--tolerance", type=float, default=0.01, metavar="S",
                    help="timing tolerance added to the light-travel time (default 0.01 s)")
     p.add_argument("--f-low", type=float, default=20.0, metavar="HZ",
-                   help="low-frequency cut (default 20 Hz)")
+                   help="lower band edge of whitening and filter, in Hz (default 20)")
     p.add_argument("--f-high", type=float, metavar="HZ",
-                   help="upper band edge (default 0.8 x Nyquist)")
+                   help="upper band edge in Hz (default 0.8 x Nyquist, below the anti-alias "
+                        "roll-off of open data)")
     p.add_argument("--dq-level", default="CBC_CAT2", metavar="LEVEL",
                    help="GWOSC data-quality level to pass (default CBC_CAT2; NONE to skip)")
-    p.add_argument("--seed", type=int, default=0, help="seed of the bank placement (default 0)")
+    p.add_argument("--seed", type=int, default=0,
+                   help="seed of the bank placement, an integer >= 0 (default 0)")
     p.add_argument("--no-veto", action="store_true",
                    help="turn off the signal-consistency chi-squared and rank triggers by "
                         "raw SNR")

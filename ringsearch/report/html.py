@@ -41,8 +41,10 @@ dl.meta dt { font-weight: 600; }
 CAPTIONS = {
     "efficiency_snr": "Detection efficiency against the injections' network optimal SNR. "
                       "Panels: template overtone count; colours: injected overtone count; "
-                      "error bars: binomial confidence intervals; lines: fitted sigmoids.",
-    "efficiency_distance": "Detection efficiency against luminosity distance.",
+                      "error bars: binomial confidence intervals; lines: fitted sigmoids; "
+                      "markers of the series in one bin are offset slightly for legibility.",
+    "efficiency_distance": "Detection efficiency against luminosity distance (Mpc); as "
+                           "above, markers offset slightly within each bin.",
     "found_missed": "Found (circles) and missed (crosses) injections.",
     "recovered": "Recovered against injected parameters for found injections; dashed: equality.",
     "overtone_efficiency": "Overtone recovery against the injections' network optimal SNR: "
@@ -50,7 +52,7 @@ CAPTIONS = {
                            "overtones (each added overtone's log10 Bayes factor above the "
                            "campaign's threshold), per injected overtone count; every "
                            "analysed injection, found or not; error bars: binomial "
-                           "confidence intervals.",
+                           "confidence intervals; markers offset slightly within each bin.",
     "background": "Time-slide background of the ranking statistic and the detection "
                   "threshold (dashed).",
 }
@@ -147,6 +149,8 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
 
     parts.append("<h2>Detection threshold</h2>")
     parts.append(_table(thresholds))
+    parts.append("<p>Thresholds are on the ranking statistic (network SNR, "
+                 "dimensionless); background time in years of time-slid data.</p>")
     if len(thresholds) and thresholds.get("limited", pd.Series(dtype=bool)).any():
         parts.append('<p class="note">The background is too short to reach the requested '
                      "false-alarm rate; the threshold sits just above the loudest background "
@@ -159,6 +163,9 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
                          "</figcaption></figure>")
     parts.append("<h3>Sigmoid fits (50% and 90% efficiency points)</h3>")
     parts.append(_table(sigmoid))
+    parts.append("<p>x50 and x90 are in the unit of the quantity fitted "
+                 "(<code>fitted_in</code>): network optimal SNR, or distance in Mpc; "
+                 "<code>_err</code> columns are one-standard-deviation fit errors.</p>")
     if len(sensitivity):
         parts.append("<h3>Sensitive volume and distance (Planck18 comoving volume)</h3>")
         parts.append(_table(sensitivity))
@@ -171,6 +178,10 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
         parts.append(f"<figure>{_img(figures['recovered'])}<figcaption>"
                      f"{e(CAPTIONS['recovered'])}</figcaption></figure>")
     parts.append(_table(accuracy))
+    parts.append("<p>Errors are recovered minus injected values of found injections "
+                 "(median and 90% range): mass in detector-frame solar masses, spin "
+                 "dimensionless, (2,2,0) frequency in Hz, damping time and start time "
+                 "in s.</p>")
     ov = summary.get("overtones")
     if ov is not None:
         parts.append("<h2>Overtone recovery</h2>")

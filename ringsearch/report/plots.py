@@ -47,6 +47,13 @@ def _panels(n: int, height: float = 3.2):
     return fig, list(axes[0])
 
 
+def _dodged(g: pd.DataFrame, i: int, n: int) -> np.ndarray:
+    """Bin centres shifted by a few per cent of the bin width per series, so that the
+    error bars of several series in one bin do not hide each other."""
+    width = (g["bin_hi"] - g["bin_lo"]).to_numpy(float)
+    return g["bin_centre"].to_numpy(float) + (i - (n - 1) / 2) * 0.08 * width
+
+
 def efficiency_curves(efficiency: pd.DataFrame, sigmoid: pd.DataFrame, by: str,
                       stem: Path) -> Path | None:
     """Efficiency against ``by``: one panel per template overtone count, one curve per
@@ -69,7 +76,7 @@ def efficiency_curves(efficiency: pd.DataFrame, sigmoid: pd.DataFrame, by: str,
             if g.empty:
                 continue
             c = colour(i)
-            x = g["bin_centre"].to_numpy(float)
+            x = _dodged(g, i, len(injected))
             y = g["efficiency"].to_numpy(float)
             err = np.vstack([y - g["ci_lo"].to_numpy(float), g["ci_hi"].to_numpy(float) - y])
             ax.errorbar(x, y, yerr=err, fmt="o", ms=4, color=c, capsize=2,
@@ -116,7 +123,7 @@ def overtone_efficiency_curves(table: pd.DataFrame, stem: Path,
                       & (table["injected_overtones"] == n_inj)].sort_values("bin_lo")
             if g.empty:
                 continue
-            x = g["bin_centre"].to_numpy(float)
+            x = _dodged(g, i, len(injected))
             y = g["efficiency"].to_numpy(float)
             err = np.vstack([y - g["ci_lo"].to_numpy(float), g["ci_hi"].to_numpy(float) - y])
             ax.errorbar(x, y, yerr=err, fmt="o-", ms=4, lw=1, color=colour(i), capsize=2,

@@ -306,6 +306,7 @@ class Bank:
         if not (0.0 < float(min_match) < 1.0):
             raise InputError(f"minimal match must lie strictly between 0 and 1, got {min_match}.")
         _check_overtones(n_overtones)
+        _check_seed(seed)
         if not (0 < f_low < f_high):
             raise InputError(f"f_low {f_low} Hz must be positive and below f_high {f_high} Hz.")
         rng = np.random.default_rng(seed)
@@ -576,7 +577,10 @@ def _check_range(name: str, rng: Any, lo: float, hi: float) -> tuple[float, floa
         raise InputError(f"{name} range must be two numbers LO:HI, got {rng!r}.") from None
     if not (math.isfinite(a) and math.isfinite(b)) or a >= b:
         raise InputError(f"{name} range {a}:{b} is empty (LO must be below HI, both finite).")
-    if a < lo or b > hi or (name == "mass" and a <= 0):
+    if name == "mass" and a <= 0:
+        raise InputError(f"mass range {a}:{b} is unphysical (masses must be positive "
+                         "solar masses).")
+    if a < lo or b > hi:
         raise InputError(f"{name} range {a}:{b} is unphysical (allowed {lo} to {hi}).")
     return a, b
 
@@ -584,3 +588,8 @@ def _check_range(name: str, rng: Any, lo: float, hi: float) -> tuple[float, floa
 def _check_overtones(n: Any) -> None:
     if not isinstance(n, int | np.integer) or n < 0 or n > 7:
         raise InputError(f"number of overtones must be an integer from 0 to 7, got {n!r}.")
+
+
+def _check_seed(seed: Any) -> None:
+    if isinstance(seed, bool) or not isinstance(seed, int | np.integer) or seed < 0:
+        raise InputError(f"bank placement seed must be an integer >= 0, got {seed!r}.")

@@ -44,6 +44,24 @@ def light_travel_time(det_a: str, det_b: str) -> float:
     return float(np.linalg.norm(np.asarray(a.location) - np.asarray(b.location)) / C_SI)
 
 
+def check_tolerance(tolerance_s: float) -> float:
+    """Validate a timing tolerance (s): finite and non-negative.
+
+    Examples
+    --------
+    >>> check_tolerance(0.01)
+    0.01
+    """
+    try:
+        tol = float(tolerance_s)
+    except (TypeError, ValueError):
+        tol = math.nan
+    if not (math.isfinite(tol) and tol >= 0.0):
+        raise InputError(f"timing tolerance must be a finite number of seconds >= 0, "
+                         f"got {tolerance_s!r}.")
+    return tol
+
+
 def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
                           tolerance_s: float = TIMING_TOLERANCE_S,
                           shifts: Mapping[str, float] | None = None,
@@ -99,6 +117,7 @@ def coincident_candidates(triggers: Mapping[str, pd.DataFrame], *,
     dets = list(triggers)
     if len(dets) < 2:
         raise InputError("coincidence needs triggers from at least two detectors.")
+    tolerance_s = check_tolerance(tolerance_s)
     shifts = dict(shifts or {})
     times: dict[str, np.ndarray] = {}
     for d in dets:

@@ -19,6 +19,7 @@ from ringsearch.errors import InputError
 from ringsearch.search.bank import Bank
 from ringsearch.search.coincidence import (
     TIMING_TOLERANCE_S,
+    check_tolerance,
     coincident_candidates,
     light_travel_time,
 )
@@ -99,6 +100,7 @@ def condition_inputs(data: Any, *, f_low: float = 20.0, f_high: float | None = N
             ts, segs = item, None
         conds[det] = condition(ts, f_low=f_low, f_high=f_high, analysable=segs, **condition_kw)
     if gps_start is not None or gps_end is not None:
+        _check_gps_window(gps_start, gps_end)
         for det, c in conds.items():
             t0 = float(c.t0)
             t1 = t0 + c.whitened.size / float(c.sample_rate)
@@ -132,9 +134,17 @@ def _combined_psd(conds: Mapping[str, Any]) -> tuple[np.ndarray, np.ndarray]:
     return f[good], 1 / inv[good]
 
 
+def _check_gps_window(gps_start: float | None, gps_end: float | None) -> None:
+    for name, v in (("--gps-start", gps_start), ("--gps-end", gps_end)):
+        if v is not None and not math.isfinite(float(v)):
+            raise InputError(f"{name} must be a finite GPS time in s, got {v}.")
+    if gps_start is not None and gps_end is not None and not float(gps_start) < float(gps_end):
+        raise InputError(f"GPS window {gps_start}:{gps_end} is empty (start must be before end).")
+
+
 def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | None = None,
                mass: tuple[float, float] = (20.0, 200.0), spin: tuple[float, float] = (0.0, 0.99),
-               n_overtones: int = 0, min_match: float = 0.97, bank: Bank | None = None,
+               n_overtones: int | None = None, min_match: float = 0.97, bank: Bank | None = None,
                snr_threshold: float = 5.0, n_slides: int = 100, slide_step_s: float | None = None,
                tolerance_s: float = TIMING_TOLERANCE_S, f_low: float = 20.0,
                f_high: float | None = None, dq_level: str = "CBC_CAT2", seed: int = 0,
@@ -152,7 +162,8 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
     mass, spin : (lo, hi)
         Remnant box of the bank (ignored when ``bank`` is given).
     n_overtones, min_match, seed
-        Bank parameters (see :meth:`Bank.from_box`).
+        Bank parameters (see :meth:`Bank.from_box`); ``n_overtones`` defaults
+        to 0, or to the given bank's count (another count with a bank is refused).
     bank : Bank, optional
         Reuse a bank instead of placing one.
     snr_threshold : float
@@ -188,13 +199,24 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         raise InputError(f"SNR threshold must be positive, got {snr_threshold}.")
     if int(n_slides) < 0:
         raise InputError(f"number of time slides must be non-negative, got {n_slides}.")
+    _check_gps_window(gps_start, gps_end)
+    tolerance_s = check_tolerance(tolerance_s)
+    if slide_step_s is not None and not (math.isfinite(float(slide_step_s))
+                                         and float(slide_step_s) > 0):
+        raise InputError(f"time-slide step must be a positive number of seconds, "
+                         f"got {slide_step_s}.")
+    if bank is not None and n_overtones is not None and int(n_overtones) != bank.n_overtones:
+        raise InputError(f"the bank was built for {bank.n_overtones} overtone(s), not the "
+                         f"{n_overtones} asked for; omit the overtone count or build a new bank.")
+    if n_overtones is None:
+        n_overtones = bank.n_overtones if bank is not None else 0
     bins = check_bins(veto_bins) if veto else None
     if veto:
         veto_domain = check_domain(veto_domain)
     rank = "snr_reweighted" if veto else "snr"
     if bank is None:
         # validate the box before any expensive work
-        from ringsearch.search.bank import _check_overtones, _check_range
+        from ringsearch.search.bank import _check_overtones, _check_range, _check_seed
 
         _check_range("mass", mass, 0.0, math.inf)
         lo_s, hi_s = _check_range("spin", spin, 0.0, 1.0)
@@ -203,6 +225,7 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         if not 0.0 < float(min_match) < 1.0:
             raise InputError(f"minimal match must lie strictly between 0 and 1, got {min_match}.")
         _check_overtones(n_overtones)
+        _check_seed(seed)
     conds = condition_inputs(data, f_low=f_low, f_high=f_high, dq_level=dq_level,
                              gps_start=gps_start, gps_end=gps_end)
     dets = list(conds)
