@@ -11,3 +11,13 @@ from __future__ import annotations
 
 class InputError(ValueError):
     """Bad input from the user: one clear sentence naming the argument or file."""
+
+
+def reason(exc: BaseException) -> str:
+    """An exception's message for quoting inside one of our sentences.
+
+    Strips the trailing full stop so that ``f"... ({reason(exc)})."`` reads as
+    one sentence; falls back to the exception's type name when it says nothing.
+    """
+    text = str(exc).strip().rstrip(".")
+    return text or type(exc).__name__

@@ -34,7 +34,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 
 if TYPE_CHECKING:
     from gwpy.timeseries import TimeSeries
@@ -165,7 +165,7 @@ def _read_hdf5(path: Path, detector: str | None) -> _FileStrain:
     try:
         f = h5py.File(path, "r")
     except OSError as exc:
-        raise InputError(f"file {path} is not a readable HDF5 file ({exc}).") from None
+        raise InputError(f"file {path} is not a readable HDF5 file ({reason(exc)}).") from None
     try:
         with f:
             if "strain/Strain" not in f:
@@ -202,8 +202,8 @@ def _read_hdf5(path: Path, detector: str | None) -> _FileStrain:
     except InputError:
         raise
     except (OSError, KeyError, ValueError, TypeError) as exc:
-        raise InputError(f"file {path} is corrupt or truncated and cannot be read ({exc}).") \
-            from None
+        raise InputError(f"file {path} is corrupt or truncated and cannot be read "
+                         f"({reason(exc)}).") from None
     out.detector = _resolve_detector(path, detector, meta_det)
     return out
 
@@ -278,7 +278,7 @@ def _read_gwf(path: Path, detector: str | None) -> _FileStrain:
             "'frames' extra (pip install 'ringsearch[frames]')."
         ) from None
     except Exception as exc:  # frame libraries raise their own exception types
-        raise InputError(f"file {path} is not a readable GWF frame file ({exc}).") from None
+        raise InputError(f"file {path} is not a readable GWF frame file ({reason(exc)}).") from None
     strain = [n for n in names if "STRAIN" in n.upper()] or names
     if detector is not None:
         strain = [n for n in strain if n.startswith(f"{detector}:")] or strain
@@ -288,7 +288,7 @@ def _read_gwf(path: Path, detector: str | None) -> _FileStrain:
     try:
         ts = TimeSeries.read(str(path), channel, format="gwf")
     except Exception as exc:
-        raise InputError(f"frame file {path} could not be read ({exc}).") from None
+        raise InputError(f"frame file {path} could not be read ({reason(exc)}).") from None
     det = _resolve_detector(path, detector, channel.split(":", 1)[0] if ":" in channel else None)
     return _FileStrain(path=path, detector=det, t0=float(ts.t0.value),
                        sample_rate=float(ts.sample_rate.value),
@@ -300,7 +300,7 @@ def _read_text(path: Path, detector: str | None, sample_rate: float | None,
     try:
         table = np.loadtxt(path, comments="#", ndmin=2, delimiter=None)
     except (ValueError, OSError, EOFError, UnicodeDecodeError) as exc:
-        raise InputError(f"file {path} is not a text table of numbers ({exc}).") from None
+        raise InputError(f"file {path} is not a text table of numbers ({reason(exc)}).") from None
     if table.size == 0:
         raise InputError(f"file {path} is empty.")
     if table.shape[1] == 1:

@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 
 if TYPE_CHECKING:
     from gwpy.timeseries import TimeSeries
@@ -141,7 +141,8 @@ def psd_from_file(path: str | os.PathLike, asd: bool | None = None):
     try:
         table = np.loadtxt(path, comments="#", ndmin=2)
     except (ValueError, OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"PSD file {path} is not a text table of numbers ({exc}).") from None
+        raise InputError(f"PSD file {path} is not a text table of numbers "
+                         f"({reason(exc)}).") from None
     if table.ndim != 2 or table.shape[1] != 2 or table.shape[0] < 2:
         raise InputError(f"PSD file {path} must have two columns (frequency, value) and at "
                          "least two rows.")

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 from ringsearch.style import PALETTE, detector_colour, figure, save_figure
 
 
@@ -197,7 +197,7 @@ def plot_qtransform(cond, path: str | os.PathLike, around: float, window: float 
                                fduration=min(2.0, (t1 - t0) / 4))
     except Exception as exc:  # gwpy/scipy raise assorted types for too narrow a band
         raise InputError(f"the Q-transform of {cond.detector} around GPS {around} failed for "
-                         f"the band {frange[0]:g}-{frange[1]:g} Hz ({exc}).") from None
+                         f"the band {frange[0]:g}-{frange[1]:g} Hz ({reason(exc)}).") from None
     fig, ax = figure(figsize=(7, 3.8))
     times = qt.times.value - around
     freqs = qt.frequencies.value

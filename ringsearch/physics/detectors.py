@@ -35,7 +35,7 @@ from typing import Any
 
 import numpy as np
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 from ringsearch.physics.units import C_SI
 
 __all__ = [
@@ -267,7 +267,7 @@ def load_detectors(path: str | Path) -> dict[str, Detector]:
     except FileNotFoundError:
         raise InputError(f"detector file {path} does not exist.") from None
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"detector file {path} is not valid TOML ({exc}).") from None
+        raise InputError(f"detector file {path} is not valid TOML ({reason(exc)}).") from None
     out = {}
     for name, spec in tables.items():
         if not isinstance(spec, dict):

@@ -23,7 +23,7 @@ from typing import Any
 
 import numpy as np
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 from ringsearch.physics.units import MPC_M, MSUN_M, MSUN_S
 
 __all__ = ["ExternalWaveform", "load_waveform", "read_waveform_file", "UNITS"]
@@ -78,7 +78,7 @@ def read_waveform_file(path: str | Path) -> tuple[np.ndarray, np.ndarray, np.nda
         raise InputError(f"waveform file {path} lacks the array {exc.args[0]!r} (need time, "
                          "h_plus, h_cross).") from None
     except (ValueError, OSError) as exc:
-        raise InputError(f"waveform file {path} could not be read ({exc}).") from None
+        raise InputError(f"waveform file {path} could not be read ({reason(exc)}).") from None
     t, hp, hc = arrays
     if not (t.ndim == hp.ndim == hc.ndim == 1 and t.size == hp.size == hc.size):
         raise InputError(f"waveform file {path}: time, h_plus and h_cross must be 1-d arrays "

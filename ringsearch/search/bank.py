@@ -43,7 +43,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ringsearch.errors import InputError
+from ringsearch.errors import InputError, reason
 
 #: A template lasts this many e-folds of its longest-lived mode: the amplitude
 #: falls to e^-8 = 3e-4, the neglected energy fraction is e^-16 ~ 1e-7.
@@ -548,7 +548,7 @@ class Bank:
         try:
             tab = pq.read_table(path)
         except Exception as exc:  # pyarrow raises several types for non-Parquet files
-            raise InputError(f"bank file {path} is not a Parquet table ({exc}).") from None
+            raise InputError(f"bank file {path} is not a Parquet table ({reason(exc)}).") from None
         raw = (tab.schema.metadata or {}).get(b"ringsearch.bank")
         if raw is None:
             raise InputError(f"bank file {path} carries no ringsearch bank metadata.")
