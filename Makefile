@@ -19,7 +19,7 @@ demo: $(STAMP)
 	$(BIN)/python scripts/demo.py --out $(OUT)
 
 test: $(STAMP)
-	$(BIN)/python -m pytest -n 2 -q
+	$(BIN)/python -m pytest -n 2 -q --doctest-modules ringsearch tests
 
 lint: $(STAMP)
 	$(BIN)/ruff check ringsearch tests scripts
