@@ -63,8 +63,14 @@ def bandpass(values: np.ndarray, sample_rate: float, f_low: float, f_high: float
     return sosfiltfilt(sos, values)
 
 
-def _read(strain_input) -> list[Any]:
-    """TimeSeries per detector from paths or from TimeSeries objects."""
+def _read(strain_input, detector: str | None = None, sample_rate: float | None = None,
+          data_start: float | None = None) -> list[Any]:
+    """TimeSeries per detector from paths or from TimeSeries objects.
+
+    ``detector``, ``sample_rate`` and ``data_start`` are the reading options of
+    :func:`ringsearch.data.io.read_strain` (``data_start`` is its
+    ``gps_start``) for files that do not describe themselves.
+    """
     from ringsearch.data.io import read_strain
 
     if isinstance(strain_input, Mapping):
@@ -80,13 +86,18 @@ def _read(strain_input) -> list[Any]:
             paths.append(Path(it))
         else:
             series.append(it)
+    read_kw = {"detector": detector, "sample_rate": sample_rate, "gps_start": data_start}
     if paths:
         by_det: dict[str, list] = {}
         for p in paths:
-            ts = read_strain(p)
+            ts = read_strain(p, **read_kw)
             by_det.setdefault(str(ts.name), []).append((p, ts))
-        series.extend(read_strain([p for p, _ in got]) if len(got) > 1 else got[0][1]
-                      for got in by_det.values())
+        # one forced detector name for files of several detectors is refused here
+        series.extend(read_strain([p for p, _ in got], **read_kw) if len(got) > 1
+                      else got[0][1] for got in by_det.values())
+    elif any(v is not None for v in read_kw.values()):
+        raise InputError("detector, sample_rate and data_start describe strain files, so they "
+                         "do not apply to strain given as series.")
     names = [str(s.name) for s in series]
     if len(set(names)) != len(names):
         raise InputError(f"the strain inputs hold the same detector twice ({names}).")
@@ -98,11 +109,15 @@ def _read(strain_input) -> list[Any]:
 def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 20.0,
                       f_high: float | None = None, time_shifts: Mapping[str, float] | None = None,
                       psd_seglen: float = 2.0, out_of_band_factor: float = 100.0,
-                      psds: Mapping[str, Any] | None = None, cache: dict | None = None
+                      psds: Mapping[str, Any] | None = None, cache: dict | None = None,
+                      *, detector: str | None = None, sample_rate: float | None = None,
+                      data_start: float | None = None
                       ) -> tuple[list[DetectorSeries], list[ToeplitzNoise], dict]:
     """Band-passed data and Toeplitz noise models for every detector.
 
-    The PSD is ``psds[detector]`` (a one-sided gwpy FrequencySeries) when
+    ``strain_input`` is as for :func:`analyse_candidate`, and so are
+    ``detector``, ``sample_rate`` and ``data_start`` (for files that do not
+    describe themselves).  The PSD is ``psds[detector]`` (a one-sided gwpy FrequencySeries) when
     given, else a Welch median estimate (:func:`ringsearch.data.psd.estimate_psd`)
     that excludes ±2 s around ``gps``.  ``cache`` (any dict kept by the caller)
     reuses noise models across calls with the same detector, PSD object and
@@ -119,7 +134,7 @@ def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 
 
     shifts = dict(time_shifts or {})
     out_d, out_n, meta = [], [], {}
-    for ts in _read(strain_input):
+    for ts in _read(strain_input, detector, sample_rate, data_start):
         name = str(ts.name)
         fs = float(ts.sample_rate.value)
         t_start = float(ts.t0.value)
@@ -169,11 +184,15 @@ def prepare_detectors(strain_input, gps: float, duration: float, f_low: float = 
 
 
 def sky_geometry(strain_input, sky: tuple[float, float], gps: float,
-                 time_shifts: Mapping[str, float] | None = None):
+                 time_shifts: Mapping[str, float] | None = None, *,
+                 detector: str | None = None, sample_rate: float | None = None,
+                 data_start: float | None = None):
     """Start-time shifts and antenna patterns (F+, Fx at psi = 0) for a sky position.
 
-    Detector names are read from the strain (files are opened); shifts are
-    geocentre-delay differences relative to the first detector unless given.
+    Detector names are read from the strain (files are opened, with the
+    reading options ``detector``, ``sample_rate``, ``data_start`` of
+    :func:`analyse_candidate`); shifts are geocentre-delay differences
+    relative to the first detector unless given.
 
     Examples
     --------
@@ -185,7 +204,7 @@ def sky_geometry(strain_input, sky: tuple[float, float], gps: float,
     if not (0 <= ra <= 2 * math.pi and -math.pi / 2 <= dec <= math.pi / 2):
         raise InputError(f"the sky position ra={ra}, dec={dec} must be in radians "
                          "(0 <= ra <= 2 pi, -pi/2 <= dec <= pi/2).")
-    names = [str(ts.name) for ts in _read(strain_input)]
+    names = [str(ts.name) for ts in _read(strain_input, detector, sample_rate, data_start)]
     antenna = {}
     delays = {}
     for det in names:
@@ -329,7 +348,9 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
                       amp_prior_snr: float = 10.0, threshold: float = 0.5,
                       time_shifts: Mapping[str, float] | None = None, run_varpro: bool = True,
                       seed: int = 0, modes=None, progress: bool = False,
-                      sky: tuple[float, float] | None = None) -> dict:
+                      sky: tuple[float, float] | None = None, *, detector: str | None = None,
+                      sample_rate: float | None = None, data_start: float | None = None
+                      ) -> dict:
     """Overtone analysis of a candidate ringdown starting at GPS time ``gps``.
 
     Parameters
@@ -372,6 +393,12 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         relative to the first detector.
     seed : int
         Seed of the generator for VARPRO starting points.
+    detector, sample_rate, data_start : optional
+        For strain files that do not describe themselves: the detector name
+        (overrides what files record; refused for files of several
+        detectors), and the sample rate (Hz) and GPS time of the first sample
+        of one-column text files (``gps_start`` of
+        :func:`ringsearch.data.io.read_strain`).
 
     Returns
     -------
@@ -407,13 +434,14 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
                              f"table's range [{slo}, {shi:.4f}] (or empty).")
     if duration is None:
         duration = _default_duration(modes, mass_range, spin_range)
+    read_kw = {"detector": detector, "sample_rate": sample_rate, "data_start": data_start}
     offsets = np.asarray(sorted(set(float(x) for x in t0_offsets_ms)), float)
     pad = max(0.0, float(offsets.max(initial=0.0))) / 1e3
     antenna = None
     if sky is not None:
-        time_shifts, antenna = sky_geometry(strain_input, sky, gps, time_shifts)
+        time_shifts, antenna = sky_geometry(strain_input, sky, gps, time_shifts, **read_kw)
     data, noises, meta = prepare_detectors(strain_input, gps, duration + pad, f_low, f_high,
-                                           time_shifts)
+                                           time_shifts, **read_kw)
     # noise models for the analysis segment length (the extra pad only checks data coverage)
     n = int(round(duration * noises[0].sample_rate))
     noises = [_shrink(nz, int(round(duration * nz.sample_rate))) for nz in noises]

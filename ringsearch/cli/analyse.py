@@ -12,6 +12,7 @@ import math
 import sys
 import textwrap
 
+from ringsearch.cli._strain_options import add_strain_input_options, pipeline_read_kwargs
 from ringsearch.errors import InputError
 
 _EPILOG = """\
@@ -26,6 +27,9 @@ examples:
       pattern at RA 1.95 rad, Dec -1.27 rad; start times shifted by the delays
   ringsearch analyse H1.hdf5 --from-search search-out --trigger 3 --out cand3
       start time taken from row 3 of search-out/triggers.parquet (default: loudest)
+  ringsearch analyse strain.txt --detector H1 --sample-rate 4096 --gps-start 1000000000 \
+      --gps 1000000008.0 --out cand-txt
+      one-column text strain: its detector, sample rate and first sample's GPS time
 
 outputs in --out: summary.json (supported_overtones, log10_bayes {"N:N-1": x},
 mass and spin {median, lo90, hi90} for the supported N, warnings, priors),
@@ -108,7 +112,8 @@ def register(subparsers) -> None:
         epilog=_EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    p.add_argument("files", nargs="+", metavar="FILE", help="strain files (one or more detectors)")
+    p.add_argument("files", nargs="+", metavar="FILE",
+                   help="strain files (GWOSC HDF5, GWF or text; one or more detectors)")
     src = p.add_mutually_exclusive_group(required=True)
     src.add_argument("--gps", type=float, metavar="T", help="ringdown start time (GPS s)")
     src.add_argument("--from-search", metavar="DIR",
@@ -148,6 +153,7 @@ def register(subparsers) -> None:
     p.add_argument("--no-varpro", action="store_true", help="skip the free-frequency fits")
     p.add_argument("--seed", type=int, default=0,
                    help="seed (integer >= 0) for the VARPRO starting points (default 0)")
+    add_strain_input_options(p)
     p.set_defaults(func=run)
 
 
@@ -181,7 +187,7 @@ def run(args: argparse.Namespace) -> int:
         t0_offsets_ms=_offsets(args.t0_offsets), amp_sigma=args.amp_prior,
         amp_prior_snr=args.amp_prior_snr, threshold=args.threshold,
         time_shifts=shifts, run_varpro=not args.no_varpro, seed=args.seed,
-        progress=sys.stderr.isatty(), sky=_sky(args.sky))
+        progress=sys.stderr.isatty(), sky=_sky(args.sky), **pipeline_read_kwargs(args))
     b = ", ".join(f"{k}: {v:+.2f}" for k, v in summary["log10_bayes"].items())
     m, s = summary["mass"], summary["spin"]
     print(f"start time {gps:.4f}: supported overtones N = {summary['supported_overtones']} "

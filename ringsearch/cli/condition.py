@@ -7,6 +7,8 @@ import json
 import math
 import textwrap
 
+from ringsearch.cli._strain_options import add_strain_input_options, strain_read_kwargs
+
 _EPILOG = """\
 examples:
   ringsearch condition H-H1_LOSC_4_V2-1126259446-32.hdf5 L-L1_LOSC_4_V2-1126259446-32.hdf5 \\
@@ -56,13 +58,7 @@ def register(subparsers) -> None:
                         "BURST_CAT1..3 (default CBC_CAT2)")
     p.add_argument("--keep-hw-injections", action="store_true",
                    help="do not drop times holding transient hardware injections")
-    p.add_argument("--detector", default=None,
-                   help="detector name (e.g. H1) for files that do not record one; it "
-                        "overrides the name a file records")
-    p.add_argument("--sample-rate", type=float, default=None, metavar="HZ",
-                   help="sample rate of one-column text files")
-    p.add_argument("--gps-start", type=float, default=None, metavar="GPS",
-                   help="GPS time of the first sample of one-column text files")
+    add_strain_input_options(p)
     p.set_defaults(func=run)
 
 
@@ -79,8 +75,7 @@ def run(args) -> int:
         raise InputError("--exclude-around needs --around to say where the candidate is.")
     data = read_detectors(args.files, dq_level=args.dq_level,
                           injections="keep" if args.keep_hw_injections else "exclude",
-                          detector=args.detector, sample_rate=args.sample_rate,
-                          gps_start=args.gps_start)
+                          **strain_read_kwargs(args))
     if args.around is not None:
         for det, (strain, _) in data.items():
             lo, hi = float(strain.t0.value), float(strain.t0.value + strain.duration.value)

@@ -7,6 +7,8 @@ import json
 import math
 import textwrap
 
+from ringsearch.cli._strain_options import add_strain_input_options, strain_read_kwargs
+
 _EPILOG = """\
 examples:
   # a two-overtone ringdown at 400 Mpc radiating 2% of the remnant mass in (2,2,0)
@@ -17,6 +19,10 @@ examples:
   # the same signal scaled to a network optimal SNR of 15 (PSD estimated from the data)
   ringsearch inject H1.hdf5 L1.hdf5 --out inj15 --mass 70 --spin 0.7 --overtones 1 \\
       --gps 1126259452.0 --ra 1 --dec 0.3 --psi 0 --inclination 0.5 --snr 15
+
+  # one-column text strain: its detector, sample rate and first sample's GPS time
+  ringsearch inject strain.txt --detector H1 --sample-rate 4096 --gps-start 1000000000 \
+      --out inj-txt --mass 70 --spin 0.7 --gps 1000000010 --ra 1 --dec 0.3 --psi 0 --snr 12
 
   # an external (e.g. numerical-relativity) waveform in units of the total mass
   ringsearch inject H1.hdf5 --out nr --waveform bbh.txt --units geometric --mass 65 \\
@@ -45,7 +51,8 @@ def register(subparsers) -> None:
         epilog=_EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    p.add_argument("files", nargs="+", metavar="FILE", help="strain files (GWOSC HDF5, text)")
+    p.add_argument("files", nargs="+", metavar="FILE",
+                   help="strain files (GWOSC HDF5, GWF, text)")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (new or empty)")
     g = p.add_argument_group("source")
     g.add_argument("--mass", type=float, required=True, metavar="MSUN",
@@ -101,6 +108,7 @@ def register(subparsers) -> None:
     p.add_argument("--detectors-file", metavar="TOML",
                    help="extra detector sites (one table per detector)")
     p.add_argument("--plot", action="store_true", help="also write injection.png")
+    add_strain_input_options(p)
     p.set_defaults(func=run)
 
 
@@ -134,12 +142,14 @@ def _extra_modes(items: list[str]) -> dict:
     return out
 
 
-def _group_files(paths: list[str]) -> dict[str, list[str]]:
+def _group_files(paths: list[str], read_kw: dict) -> dict[str, list[str]]:
+    """Files per detector (``read_kw``: the reading options of :func:`read_strain`)."""
     from ringsearch.data.io import detector_from_filename, read_strain
 
     groups: dict[str, list[str]] = {}
     for path in paths:
-        det = detector_from_filename(path) or read_strain(path).name
+        det = (read_kw.get("detector") or detector_from_filename(path)
+               or read_strain(path, **read_kw).name)
         groups.setdefault(det, []).append(path)
     return groups
 
@@ -189,10 +199,12 @@ def run(args) -> int:
     if args.distance is not None and args.waveform is None and args.epsilon is None:
         raise InputError("--distance needs --epsilon, the fraction of the mass radiated in "
                          "(2,2,0).")
-    groups = _group_files(args.files)
+    read_kw = strain_read_kwargs(args)
+    groups = _group_files(args.files, read_kw)
     for det in groups:
         get_detector(det)  # unknown site: a clear error before any work
-    strains = {det: read_strain(paths, detector=det) for det, paths in groups.items()}
+    strains = {det: read_strain(paths, **{**read_kw, "detector": det})
+               for det, paths in groups.items()}
     distance = args.distance if args.distance is not None else 100.0
     mass = float(args.mass)
     if args.source_frame:

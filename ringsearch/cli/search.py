@@ -13,6 +13,7 @@ import math
 import sys
 import textwrap
 
+from ringsearch.cli._strain_options import add_strain_input_options, pipeline_read_kwargs
 from ringsearch.errors import InputError
 
 _EPILOG = """\
@@ -27,6 +28,10 @@ examples:
       reuse a saved bank
   ringsearch search H1.hdf5 L1.hdf5 --out run4 --veto-bins 16 --veto-domain frequency
       signal-consistency test with 16 frequency bands instead of 8 time slices
+  ringsearch search strain.txt --detector H1 --sample-rate 4096 --data-start 1000000000 \
+      --out run5
+      one-column text strain (here --gps-start is the searched window, so the first
+      sample's GPS time is --data-start)
 
 signal-consistency veto (on by default): at every trigger the template is split
 into P pieces of equal expected SNR (time slices of the whitened template, or
@@ -77,7 +82,8 @@ def register(subparsers) -> None:
                    help="strain files (GWOSC HDF5, GWF or text), one or more detectors")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (new or empty)")
     p.add_argument("--gps-start", type=float, metavar="T",
-                   help="earliest template start time searched (GPS s)")
+                   help="earliest template start time searched (GPS s); the GPS time of a "
+                        "text file's first sample is --data-start")
     p.add_argument("--gps-end", type=float, metavar="T",
                    help="latest template start time searched (GPS s)")
     p.add_argument("--mass", default="20:200", metavar="LO:HI",
@@ -119,6 +125,8 @@ def register(subparsers) -> None:
     p.add_argument("--veto-domain", choices=("time", "frequency"), default="time",
                    help="split the template into time slices (default) or frequency bands")
     p.add_argument("--no-plots", action="store_true", help="skip the figures")
+    # --gps-start already is the searched window here, so only --data-start
+    add_strain_input_options(p, start_flags=("--data-start",))
     p.set_defaults(func=run)
 
 
@@ -141,7 +149,8 @@ def run(args: argparse.Namespace) -> int:
                      slide_step_s=args.slide_step, tolerance_s=args.tolerance,
                      f_low=args.f_low, f_high=args.f_high, dq_level=args.dq_level,
                      seed=args.seed, progress=sys.stderr.isatty(), veto=not args.no_veto,
-                     veto_bins=args.veto_bins, veto_domain=args.veto_domain)
+                     veto_bins=args.veto_bins, veto_domain=args.veto_domain,
+                     **pipeline_read_kwargs(args))
     with staged_directory(out) as stage:
         from ringsearch.files import atomic_path
 

@@ -79,6 +79,8 @@ class _FileStrain:
     inj_names: list[str] | None = None
     mask_t0: float = 0.0
     mask_dt: float = 1.0
+    #: the detector the file itself names (header, channel or GWOSC file name), if any
+    recorded: str | None = None
 
     @property
     def t1(self) -> float:
@@ -205,15 +207,24 @@ def _read_hdf5(path: Path, detector: str | None) -> _FileStrain:
         raise InputError(f"file {path} is corrupt or truncated and cannot be read "
                          f"({reason(exc)}).") from None
     out.detector = _resolve_detector(path, detector, meta_det)
+    out.recorded = _recorded_detector(path, meta_det)
     return out
+
+
+def _recorded_detector(path: Path, from_file: str | None) -> str | None:
+    """The detector a file names itself (its header or channel, else its GWOSC name)."""
+    for cand in (from_file, detector_from_filename(path)):
+        if cand and _DETECTOR_RE.match(cand.strip()):
+            return cand.strip()
+    return None
 
 
 def _resolve_detector(path: Path, given: str | None, from_file: str | None) -> str:
     if given is not None:
         return _check_detector(given, f"file {path}")
-    for cand in (from_file, detector_from_filename(path)):
-        if cand and _DETECTOR_RE.match(cand.strip()):
-            return cand.strip()
+    found = _recorded_detector(path, from_file)
+    if found is not None:
+        return found
     raise InputError(f"cannot tell which detector recorded file {path}; "
                      "give the detector explicitly (e.g. detector='H1').")
 
@@ -289,10 +300,12 @@ def _read_gwf(path: Path, detector: str | None) -> _FileStrain:
         ts = TimeSeries.read(str(path), channel, format="gwf")
     except Exception as exc:
         raise InputError(f"frame file {path} could not be read ({reason(exc)}).") from None
-    det = _resolve_detector(path, detector, channel.split(":", 1)[0] if ":" in channel else None)
+    prefix = channel.split(":", 1)[0] if ":" in channel else None
+    det = _resolve_detector(path, detector, prefix)
     return _FileStrain(path=path, detector=det, t0=float(ts.t0.value),
                        sample_rate=float(ts.sample_rate.value),
-                       data=np.asarray(ts.value, dtype=np.float64))
+                       data=np.asarray(ts.value, dtype=np.float64),
+                       recorded=_recorded_detector(path, prefix))
 
 
 def _read_text(path: Path, detector: str | None, sample_rate: float | None,
@@ -306,7 +319,7 @@ def _read_text(path: Path, detector: str | None, sample_rate: float | None,
     if table.shape[1] == 1:
         if sample_rate is None or gps_start is None:
             raise InputError(f"text file {path} has one column, so give both its sample "
-                             "rate (--sample-rate) and its GPS start (--gps-start).")
+                             "rate (--sample-rate) and its GPS start (--data-start).")
         data, t0, fs = table[:, 0], check_gps(gps_start, "gps_start"), float(sample_rate)
     elif table.shape[1] == 2:
         times, data = table[:, 0], table[:, 1]
@@ -330,7 +343,8 @@ def _read_text(path: Path, detector: str | None, sample_rate: float | None,
         raise InputError(f"sample rate {fs!r} for file {path} must be positive.")
     det = _resolve_detector(path, detector, None)
     return _FileStrain(path=path, detector=det, t0=t0, sample_rate=fs,
-                       data=np.ascontiguousarray(data, dtype=np.float64))
+                       data=np.ascontiguousarray(data, dtype=np.float64),
+                       recorded=_recorded_detector(path, None))
 
 
 def _looks_like_hdf5(path: Path) -> bool:
@@ -370,8 +384,20 @@ def _as_paths(paths) -> list[Path]:
     return out
 
 
+def _check_one_detector(files: list[_FileStrain], detector: str | None) -> None:
+    """Refuse one forced detector name for files that name different detectors."""
+    if detector is None:
+        return
+    named = sorted({f.recorded for f in files if f.recorded})
+    if len(named) > 1:
+        raise InputError(f"detector {detector!r} (--detector) was given for files of several "
+                         f"detectors ({', '.join(named)}); give it only when all files come "
+                         "from one detector.")
+
+
 def _load_all(paths, detector, sample_rate, gps_start) -> list[_FileStrain]:
     files = [_load_file(p, detector, sample_rate, gps_start) for p in _as_paths(paths)]
+    _check_one_detector(files, detector)
     dets = sorted({f.detector for f in files})
     if len(dets) > 1:
         raise InputError(f"the files hold different detectors ({', '.join(dets)}); read each "
@@ -425,7 +451,9 @@ def read_strain(paths: str | os.PathLike | Iterable[str | os.PathLike],
         from the same detector and at the same sample rate.
     detector : str, optional
         Detector name such as ``"H1"``; by default taken from the file
-        (``meta/Detector``, the frame channel or a GWOSC file name).
+        (``meta/Detector``, the frame channel or a GWOSC file name).  Given,
+        it overrides the name of every file, and is refused when the files
+        name different detectors.
     sample_rate, gps_start : float, optional
         For one-column text files, which carry neither.
 
@@ -708,7 +736,8 @@ def read_detectors(paths, dq_level: str = DEFAULT_DQ_LEVEL, injections: str = "e
     dq_level, injections
         As for :func:`read_strain_with_quality`.
     detector, sample_rate, gps_start
-        As for :func:`read_strain` (``detector`` forces one name for all files).
+        As for :func:`read_strain` (``detector`` forces one name for all files,
+        so it is refused when the files name different detectors).
 
     Returns
     -------
@@ -731,9 +760,10 @@ def read_detectors(paths, dq_level: str = DEFAULT_DQ_LEVEL, injections: str = "e
     from gwpy.segments import SegmentList
 
     level = _check_level(dq_level, injections)
+    files = [_load_file(p, detector, sample_rate, gps_start) for p in _as_paths(paths)]
+    _check_one_detector(files, detector)
     groups: dict[str, list[_FileStrain]] = {}
-    for p in _as_paths(paths):
-        f = _load_file(p, detector, sample_rate, gps_start)
+    for f in files:
         groups.setdefault(f.detector, []).append(f)
     first = next(iter(groups.values()))[0]
     out = {}

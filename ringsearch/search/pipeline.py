@@ -61,11 +61,16 @@ def _is_conditioned(x: Any) -> bool:
 
 def condition_inputs(data: Any, *, f_low: float = 20.0, f_high: float | None = None,
                      dq_level: str = "CBC_CAT2", gps_start: float | None = None,
-                     gps_end: float | None = None, **condition_kw: Any) -> dict:
+                     gps_end: float | None = None, detector: str | None = None,
+                     sample_rate: float | None = None, data_start: float | None = None,
+                     **condition_kw: Any) -> dict:
     """Turn paths / strain series / conditioned data into ``{detector: ConditionedData}``.
 
     The GPS window is only checked here (it must overlap analysable data);
-    :func:`run_search` restricts trigger start times to it.
+    :func:`run_search` restricts trigger start times to it.  ``detector``,
+    ``sample_rate`` and ``data_start`` describe files that do not describe
+    themselves, as in :func:`ringsearch.data.io.read_detectors` (where
+    ``data_start`` is called ``gps_start``); they apply to file paths only.
 
     Examples
     --------
@@ -87,7 +92,11 @@ def condition_inputs(data: Any, *, f_low: float = 20.0, f_high: float | None = N
         paths = list(data)
         if not paths:
             raise InputError("no strain files given.")
-        items = {det: ts_segs for det, ts_segs in read_detectors(paths, dq_level=dq_level).items()}
+        items = dict(read_detectors(paths, dq_level=dq_level, detector=detector,
+                                    sample_rate=sample_rate, gps_start=data_start))
+    elif detector is not None or sample_rate is not None or data_start is not None:
+        raise InputError("detector, sample_rate and data_start describe strain files, so they "
+                         "do not apply to strain given as a mapping {detector: strain}.")
     from ringsearch.data.condition import condition
 
     for det, item in items.items():
@@ -149,7 +158,9 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
                tolerance_s: float = TIMING_TOLERANCE_S, f_low: float = 20.0,
                f_high: float | None = None, dq_level: str = "CBC_CAT2", seed: int = 0,
                progress: bool = False, veto: bool = True,
-               veto_bins: int = DEFAULT_BINS, veto_domain: str = DEFAULT_DOMAIN) -> SearchResult:
+               veto_bins: int = DEFAULT_BINS, veto_domain: str = DEFAULT_DOMAIN,
+               detector: str | None = None, sample_rate: float | None = None,
+               data_start: float | None = None) -> SearchResult:
     """Search strain for ringdowns and rank candidates by false-alarm rate.
 
     Parameters
@@ -184,6 +195,11 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         Number p of pieces of the chi-squared (default 8).
     veto_domain : {"time", "frequency"}
         Pieces are time slices of the whitened template (default) or frequency bands.
+    detector, sample_rate, data_start : optional
+        For strain files that do not describe themselves: the detector name
+        (overrides what files record; refused for files of several
+        detectors), and the sample rate (Hz) and GPS time of the first sample
+        of one-column text files.  Only with file paths as ``data``.
 
     Returns
     -------
@@ -227,7 +243,8 @@ def run_search(data: Any, *, gps_start: float | None = None, gps_end: float | No
         _check_overtones(n_overtones)
         _check_seed(seed)
     conds = condition_inputs(data, f_low=f_low, f_high=f_high, dq_level=dq_level,
-                             gps_start=gps_start, gps_end=gps_end)
+                             gps_start=gps_start, gps_end=gps_end, detector=detector,
+                             sample_rate=sample_rate, data_start=data_start)
     dets = list(conds)
     if bank is None:
         f_hi = min(float(c.f_high) for c in conds.values())
