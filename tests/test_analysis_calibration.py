@@ -20,34 +20,20 @@ import math
 
 import numpy as np
 import pytest
+from analysis_support import FS, noise_model
+from analysis_support import coloured_noise as _coloured_noise
 
 from ringsearch.analysis.fits import DetectorSeries, damped_basis, fit_amplitudes
-from ringsearch.analysis.noise_model import toeplitz_noise
 from ringsearch.analysis.posterior import remnant_posterior
 from ringsearch.physics.qnm import mode_f_tau
 
-FS = 4096.0
 N_SEG = 256          # 62.5 ms: more than 9 damping times of the slowest (2,2,0) in the box
 MASS_BOX = (50.0, 90.0)
 SPIN_BOX = (0.3, 0.9)
 
 
-def _psd(f):
-    f = np.maximum(np.asarray(f, float), 10.0)
-    return 1e-46 * (1.0 + (50.0 / f) ** 2 + (f / 500.0) ** 2)
-
-
 def _noise_model(n=N_SEG):
-    fr = np.fft.rfftfreq(1 << 14, 1 / FS)
-    return toeplitz_noise(fr, _psd(fr), FS, n, f_low=0.0, f_high=FS / 2)
-
-
-def _coloured_noise(rng, n_total):
-    f = np.fft.rfftfreq(n_total, 1 / FS)
-    x = np.sqrt(n_total * FS * _psd(f) / 4) * (rng.standard_normal(len(f))
-                                               + 1j * rng.standard_normal(len(f)))
-    x[0] = x[-1] = 0.0
-    return np.fft.irfft(x, n_total)
+    return noise_model(n)
 
 
 def _kerr_f_tau(mass, spin, n_modes):

@@ -7,10 +7,11 @@ import math
 
 import numpy as np
 import pytest
+from analysis_support import FS, bcw_modes, coloured_noise
+from analysis_support import noise_model as _noise
 from scipy import integrate
 
 from ringsearch.analysis.fits import DetectorSeries, damped_basis
-from ringsearch.analysis.noise_model import toeplitz_noise
 from ringsearch.analysis.posterior import (
     credible_interval,
     marginal_log_likelihood,
@@ -18,43 +19,6 @@ from ringsearch.analysis.posterior import (
     remnant_posterior,
 )
 from ringsearch.errors import InputError
-from ringsearch.physics.units import MSUN_S
-
-FS = 4096.0
-
-# Berti, Cardoso & Will (2006), PRD 73, 064030, Table VIII fits for (l, m) = (2, 2),
-# n = 0, 1, 2: M omega_R = f1 + f2 (1-j)^f3, Q = q1 + q2 (1-j)^q3.  # from memory
-_BCW = {0: (1.5251, -1.1568, 0.1292, 0.7000, 1.4187, -0.4990),
-        1: (1.3673, -1.0260, 0.1628, 0.1000, 0.5436, -0.4731),
-        2: (1.3223, -1.0257, 0.1860, -0.1000, 0.4206, -0.4256)}
-
-
-def bcw_modes(mass, spin, n):
-    """Stand-in QNM provider (published fits, a few per cent accurate)."""
-    f1, f2, f3, q1, q2, q3 = _BCW[n]
-    mass, spin = np.asarray(mass, float), np.asarray(spin, float)
-    mw = f1 + f2 * (1 - spin) ** f3
-    q = q1 + q2 * (1 - spin) ** q3
-    f = mw / (2 * math.pi * mass * MSUN_S)
-    return f, q / (math.pi * f)
-
-
-def psd(f):
-    f = np.maximum(np.asarray(f, float), 10.0)
-    return 1e-46 * (1.0 + (50.0 / f) ** 2 + (f / 500.0) ** 2)
-
-
-def coloured_noise(rng, n_total):
-    f = np.fft.rfftfreq(n_total, 1 / FS)
-    x = np.sqrt(n_total * FS * psd(f) / 4) * (rng.standard_normal(len(f))
-                                              + 1j * rng.standard_normal(len(f)))
-    x[0] = x[-1] = 0.0
-    return np.fft.irfft(x, n_total)
-
-
-def _noise(n):
-    fr = np.fft.rfftfreq(1 << 14, 1 / FS)
-    return toeplitz_noise(fr, psd(fr), FS, n, f_low=0.0, f_high=FS / 2)
 
 
 def _brute_force_log_evidence(y, a, s, lim=6.5, npts=29):

@@ -2,36 +2,14 @@
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 import pytest
+from analysis_support import FS, bcw_modes, coloured_noise
+from analysis_support import noise_model as _noise
 from scipy import stats
 
 from ringsearch.analysis.fits import damped_basis
-from ringsearch.analysis.noise_model import toeplitz_noise
 from ringsearch.analysis.varpro import fit_free_modes, fit_kerr
-from ringsearch.physics.units import MSUN_S
-
-FS = 4096.0
-
-
-def psd(f):
-    f = np.maximum(np.asarray(f, float), 10.0)
-    return 1e-46 * (1.0 + (50.0 / f) ** 2 + (f / 500.0) ** 2)
-
-
-def coloured_noise(rng, n_total):
-    f = np.fft.rfftfreq(n_total, 1 / FS)
-    x = np.sqrt(n_total * FS * psd(f) / 4) * (rng.standard_normal(len(f))
-                                              + 1j * rng.standard_normal(len(f)))
-    x[0] = x[-1] = 0.0
-    return np.fft.irfft(x, n_total)
-
-
-def _noise(n):
-    fr = np.fft.rfftfreq(1 << 14, 1 / FS)
-    return toeplitz_noise(fr, psd(fr), FS, n, f_low=0.0, f_high=FS / 2)
 
 
 def test_noise_free_free_modes_recovered_to_1e_8():
@@ -47,18 +25,6 @@ def test_noise_free_free_modes_recovered_to_1e_8():
     assert np.allclose(r.tau_s, tau, rtol=1e-8, atol=0)
     assert r.n_agree >= 2
     assert set(r.starts.columns) >= {"chi2", "group", "start_f0", "end_tau1"}
-
-
-# Berti, Cardoso & Will (2006), PRD 73, 064030, Table VIII, (2,2,0) and (2,2,1).  # from memory
-_BCW = {0: (1.5251, -1.1568, 0.1292, 0.7000, 1.4187, -0.4990),
-        1: (1.3673, -1.0260, 0.1628, 0.1000, 0.5436, -0.4731)}
-
-
-def bcw_modes(mass, spin, n):
-    f1, f2, f3, q1, q2, q3 = _BCW[n]
-    mass, spin = np.asarray(mass, float), np.asarray(spin, float)
-    f = (f1 + f2 * (1 - spin) ** f3) / (2 * math.pi * mass * MSUN_S)
-    return f, (q1 + q2 * (1 - spin) ** q3) / (math.pi * f)
 
 
 def test_noise_free_kerr_fit_recovers_mass_and_spin():
