@@ -7,11 +7,13 @@ never leaves a half-written table, figure or output folder behind.
 from __future__ import annotations
 
 import contextlib
+import math
 import os
 import shutil
 import tempfile
 from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
 
 @contextlib.contextmanager
@@ -81,3 +83,46 @@ def staged_directory(out: str | os.PathLike) -> Iterator[Path]:
     except BaseException:
         shutil.rmtree(stage, ignore_errors=True)
         raise
+
+
+def json_safe(value: Any) -> Any:
+    """Plain JSON values: numpy scalars and arrays to Python, NaN and infinities to None.
+
+    ``json.dumps`` would write ``NaN`` and ``Infinity`` tokens, which are not JSON.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> json_safe({"a": np.float64(1.5), "b": [float("nan"), np.arange(2)]})
+    {'a': 1.5, 'b': [None, [0, 1]]}
+    """
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [json_safe(v) for v in value]
+    if hasattr(value, "tolist") and hasattr(value, "dtype"):  # numpy scalars and arrays
+        value = value.tolist()
+        if isinstance(value, list):
+            return json_safe(value)
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if hasattr(value, "__fspath__"):
+        return os.fspath(value)
+    return value
+
+
+def write_json(path: str | os.PathLike, obj: Any, indent: int | None = 2,
+               sort_keys: bool = False) -> Path:
+    """Write ``obj`` as strict JSON (see :func:`json_safe`) atomically; returns the path.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = write_json(pathlib.Path(tempfile.mkdtemp()) / "s.json", {"x": float("nan")})
+    >>> p.read_text().strip()
+    '{\\n  "x": null\\n}'
+    """
+    import json
+
+    text = json.dumps(json_safe(obj), indent=indent, sort_keys=sort_keys, allow_nan=False)
+    return write_text(path, text + "\n")
