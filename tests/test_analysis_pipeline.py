@@ -84,13 +84,18 @@ def synthetic_file(tmp_path_factory):
     return path
 
 
+def _reject_constant(name: str):
+    raise ValueError(f"summary.json holds the non-JSON constant {name}")
+
+
 def test_cli_analyse_writes_summary_tables_and_plots(synthetic_file, tmp_path, capsys):
     out = tmp_path / "cand"
     rc = main(["analyse", str(synthetic_file), "--gps", "1000000008.0", "--out", str(out),
                "--max-overtones", "1", "--mass", "40:110", "--grid", "20,20",
                "--t0-offsets", "0,4", "--duration", "0.08"])
     assert rc == 0
-    s = json.loads((out / "summary.json").read_text())
+    # strict JSON (RFC 8259, section 6: no NaN or Infinity): constants make the parser raise
+    s = json.loads((out / "summary.json").read_text(), parse_constant=_reject_constant)
     assert isinstance(s["supported_overtones"], int)
     assert set(s["log10_bayes"]) == {"1:0"}
     for key in ("mass", "spin"):

@@ -26,6 +26,7 @@ import scipy.linalg as sla
 
 from ringsearch.analysis.noise_model import ToeplitzNoise
 from ringsearch.errors import InputError
+from ringsearch.physics import basis as physics_basis
 
 __all__ = ["DetectorSeries", "damped_basis", "FitResult", "fit_amplitudes",
            "start_time_scan"]
@@ -88,26 +89,42 @@ class DetectorSeries:
 
 
 def damped_basis(t: np.ndarray, f_hz: np.ndarray, tau_s: np.ndarray) -> np.ndarray:
-    """Design matrix of damped cosines and sines: shape ``(len(t), 2K)``.
+    """Design matrix of damped cosines and sines: shape ``(len(t), 2K)``, or ``(len(t), ..., 2K)``.
 
-    Column ``2k`` is ``e^{-t/τ_k} cos 2πf_k t`` and ``2k+1`` the sine; ``t`` is
-    measured from the amplitude reference time.
+    Column ``2k`` is ``e^{-t/τ_k} cos 2πf_k t`` and ``2k+1`` the sine (the
+    rows of :func:`ringsearch.physics.basis.damped_basis`, transposed); ``t`` is
+    measured from the amplitude reference time.  Unlike the signal model, the
+    functions are not cut at ``t < 0``: a fit may refer its amplitudes to a
+    time after the segment's first sample (a start-time scan with a common
+    reference).  ``f_hz`` and ``tau_s`` of shape ``(..., K)`` give one matrix
+    per leading index, on the middle axes.
 
     Examples
     --------
     >>> import numpy as np
     >>> damped_basis(np.array([0.0, 0.001]), np.array([250.0]), np.array([0.004])).shape
     (2, 2)
+    >>> x = damped_basis(np.array([-0.001, 0.0]), [250.0], [0.004])
+    >>> bool(np.allclose(x[0], [np.exp(0.25) * np.cos(np.pi / 2), -np.exp(0.25)]))
+    True
+    >>> damped_basis(np.zeros(3), np.ones((5, 2)), np.ones((5, 2))).shape
+    (3, 5, 4)
     """
-    t = np.asarray(t, float)[:, None]
-    f = np.atleast_1d(np.asarray(f_hz, float))[None, :]
-    tau = np.atleast_1d(np.asarray(tau_s, float))[None, :]
-    env = np.exp(-t / tau)
-    phase = 2.0 * np.pi * f * t
-    out = np.empty((t.shape[0], 2 * f.shape[1]))
-    out[:, 0::2] = env * np.cos(phase)
-    out[:, 1::2] = env * np.sin(phase)
-    return out
+    t = np.asarray(t, float)
+    f, tau = np.broadcast_arrays(np.atleast_1d(np.asarray(f_hz, float)),
+                                 np.atleast_1d(np.asarray(tau_s, float)))
+    c = min(0.0, float(t.min())) if t.size else 0.0
+    u = physics_basis.damped_basis(t - c, f, tau)  # (..., 2K, n), at times >= 0 only
+    if c < 0.0:
+        # earlier times: e^{(2πi f - 1/τ)(s + c)} = e^{(2πi f - 1/τ) s} z_k, so each
+        # (cos, sin) pair is the pair at s, rotated and scaled by z_k = e^{-c/τ} e^{2πi f c}
+        env = np.exp(-c / tau)[..., None]
+        zr = env * np.cos(2.0 * np.pi * f * c)[..., None]
+        zi = env * np.sin(2.0 * np.pi * f * c)[..., None]
+        cs, sn = u[..., 0::2, :].copy(), u[..., 1::2, :].copy()
+        u[..., 0::2, :] = cs * zr - sn * zi
+        u[..., 1::2, :] = cs * zi + sn * zr
+    return np.moveaxis(u, -1, 0)
 
 
 @dataclass

@@ -18,7 +18,6 @@ atomically (the folder appears whole or not at all).
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from collections.abc import Mapping, Sequence
@@ -570,7 +569,7 @@ def _vp_row(det: str, fit: str, r) -> dict:
 def _write_outputs(out: Path, summary: dict, post, ev_t0: pd.DataFrame, scan: pd.DataFrame,
                    varpro: pd.DataFrame, vp_starts: list[pd.DataFrame]) -> None:
     from ringsearch.analysis import plots
-    from ringsearch.files import staged_directory, write_text
+    from ringsearch.files import staged_directory, write_json
 
     with staged_directory(out) as stage:
         ev = pd.DataFrame({"n_overtones": np.arange(post.max_overtones + 1),
@@ -597,13 +596,4 @@ def _write_outputs(out: Path, summary: dict, post, ev_t0: pd.DataFrame, scan: pd
         plots.plot_bayes_factors(post, ev_t0, stage / "bayes_factors.png",
                                  threshold=summary["bayes_threshold_log10"])
         plots.plot_start_time_scan(scan, stage / "start_time_scan.png")
-        write_text(stage / "summary.json", json.dumps(summary, indent=2, default=_json_default)
-                   + "\n")
-
-
-def _json_default(o):
-    if isinstance(o, (np.floating, np.integer)):
-        return o.item()
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    raise TypeError(type(o))
+        write_json(stage / "summary.json", summary)

@@ -548,7 +548,7 @@ def _grid_stats(yw: np.ndarray, t: np.ndarray, noise: ToeplitzNoise, f: np.ndarr
     for s0 in range(0, g, step):
         sl = slice(s0, min(g, s0 + step))
         ng = sl.stop - sl.start
-        x = _batched_basis(t, f[sl], tau[sl])            # (n, ng, k2)
+        x = damped_basis(t, f[sl], tau[sl])              # (n, ng, k2)
         xw = noise.whiten(x.reshape(len(t), ng * k2)).reshape(len(t), ng, k2)
         gram[sl] = np.einsum("ngi,ngj->gij", xw, xw, optimize=True)
         bvec[sl] = np.einsum("ngi,n->gi", xw, yw, optimize=True)
@@ -600,16 +600,6 @@ def _ll_coherent(stats_list, fpc, sig: float, kmax: int) -> np.ndarray:
                    - np.sum(np.log(np.diagonal(c, axis1=1, axis2=2)), axis=1)
                    - 2 * kk * math.log(sig))
     return ll
-
-
-def _batched_basis(t: np.ndarray, f: np.ndarray, tau: np.ndarray) -> np.ndarray:
-    tt = t[:, None, None]
-    env = np.exp(-tt / tau[None])
-    ph = 2 * np.pi * f[None] * tt
-    out = np.empty((len(t), f.shape[0], 2 * f.shape[1]))
-    out[:, :, 0::2] = env * np.cos(ph)
-    out[:, :, 1::2] = env * np.sin(ph)
-    return out
 
 
 def _check_segment_modes(series: DetectorSeries, noise: ToeplitzNoise, f: np.ndarray,

@@ -127,7 +127,9 @@ def _status(args) -> int:
 
     status = campaign_status(args.out)
     if args.json:
-        print(json.dumps(status, indent=2))
+        from ringsearch.files import json_safe
+
+        print(json.dumps(json_safe(status), indent=2, allow_nan=False))
         return 0
     state = ("finished" if status["assembled"] else
              "all chunks done, tables not assembled" if status["complete"] else "unfinished")

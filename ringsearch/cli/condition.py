@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import textwrap
 
@@ -67,7 +66,7 @@ def run(args) -> int:
     from ringsearch.data.io import read_detectors
     from ringsearch.data.plots import plot_asd, plot_qtransform, plot_whitened
     from ringsearch.errors import InputError
-    from ringsearch.files import staged_directory, write_text
+    from ringsearch.files import staged_directory, write_json
 
     if not (args.window > 0 and math.isfinite(args.window)):
         raise InputError(f"--window {args.window!r} must be a positive number of seconds.")
@@ -114,7 +113,7 @@ def run(args) -> int:
             summary["dq_level"] = args.dq_level
             summary["hw_injections_excluded"] = not args.keep_hw_injections
             summary["psd_excluded"] = list(exclude) if exclude else None
-            write_text(sub / "conditioning.json", json.dumps(summary, indent=2) + "\n")
+            write_json(sub / "conditioning.json", summary)
             plot_whitened(c, sub / "whitened.png", around=around, window=args.window,
                           title=f"{c.detector} whitened strain")
             plot_qtransform(c, sub / "qtransform.png", around=around, window=args.window)

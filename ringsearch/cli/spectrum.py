@@ -169,7 +169,9 @@ def run(args: argparse.Namespace) -> int:
     if args.plot:
         plot_tracks(args.plot, modes, spin, mass)
     if args.json:
-        print(json.dumps(rows, indent=1))
+        from ringsearch.files import json_safe
+
+        print(json.dumps(json_safe(rows), indent=1, allow_nan=False))
     else:
         print(_format_table(rows, mass is not None))
     return 0

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ringsearch.data.segments import total_seconds
 from ringsearch.errors import InputError
 
 #: Default low-frequency cut in Hz (below ~20 Hz the early advanced detectors'
@@ -145,7 +146,7 @@ class ConditionedData:
     @property
     def analysed_seconds(self) -> float:
         """Total length of the analysable segments in seconds."""
-        return float(sum(float(s[1] - s[0]) for s in self.analysable))
+        return total_seconds(self.analysable)
 
     def filter_response(self, freqs) -> np.ndarray:
         """Real, zero-phase magnitude response H(f) that was applied to the data's DFT.
@@ -299,7 +300,12 @@ def _tukey_ramp(n: int) -> np.ndarray:
 
 
 def _apply_segments(x: np.ndarray, t0: float, fs: float, segs, taper_n: int) -> None:
-    """In place: zero ``x`` outside ``segs`` and taper ``taper_n`` samples at their edges."""
+    """In place: zero ``x`` outside ``segs`` and taper ``taper_n`` samples at their edges.
+
+    A sample is kept when its whole period ``[t_j, t_j + 1/fs)`` lies in a segment, which
+    is stricter than :func:`ringsearch.data.segments.mask_from_segments` (sample time in a
+    segment) when a segment ends between two samples.
+    """
     n = x.size
     keep = np.zeros(n, dtype=bool)
     ramps = []
@@ -534,11 +540,10 @@ def condition(strain, f_low: float = DEFAULT_F_LOW, f_high: float | None = None,
 
 
 def _contract(segs, edge: float):
-    from gwpy.segments import Segment, SegmentList
+    """``segs`` less ``edge`` seconds at both ends; segments no longer than ``2 * edge`` vanish."""
+    from gwpy.segments import SegmentList
 
-    out = SegmentList()
-    for s in segs:
-        a, b = float(s[0]) + edge, float(s[1]) - edge
-        if b > a:
-            out.append(Segment(a, b))
-    return out
+    # SegmentList.contract alone would turn a segment shorter than 2 * edge into a
+    # reversed (still non-empty) one, so those are dropped first
+    return SegmentList(s for s in segs
+                       if float(s[1]) - edge > float(s[0]) + edge).contract(edge)

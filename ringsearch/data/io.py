@@ -34,6 +34,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ringsearch.data.segments import segments_from_mask
 from ringsearch.errors import InputError, reason
 
 if TYPE_CHECKING:
@@ -503,17 +504,10 @@ def finite_segments(strain, min_duration: float = 0.0):
     >>> list(finite_segments(TimeSeries(x, t0=0, sample_rate=2)))
     [Segment(0.0, 2.0), Segment(3.0, 4.0)]
     """
-    from gwpy.segments import Segment, SegmentList
-
-    good = np.isfinite(np.asarray(strain.value))
-    t0 = float(strain.t0.value)
-    dt = float(strain.dt.value)
-    edges = np.flatnonzero(np.diff(np.concatenate(([0], good.view(np.int8), [0]))))
-    segs = SegmentList()
-    for a, b in zip(edges[::2], edges[1::2], strict=True):
-        if (b - a) * dt >= min_duration and b > a:
-            segs.append(Segment(t0 + a * dt, t0 + b * dt))
-    return segs.coalesce()
+    fs, dt = float(strain.sample_rate.value), float(strain.dt.value)
+    segs = segments_from_mask(np.isfinite(np.asarray(strain.value)), float(strain.t0.value), fs)
+    # length from the sample count, free of the rounding of GPS-sized segment ends
+    return type(segs)(s for s in segs if round((s[1] - s[0]) * fs) * dt >= min_duration)
 
 
 def _required_bits(level: str, names: list[str] | None, path: Path) -> list[int]:
@@ -535,13 +529,9 @@ def _required_bits(level: str, names: list[str] | None, path: Path) -> list[int]
 
 
 def _mask_segments(mask: np.ndarray, bits: Sequence[int], t0: float, dt: float):
-    from gwpy.segments import Segment, SegmentList
-
+    """Segments of the bitmask samples (each ``dt`` long) with all of ``bits`` set."""
     need = np.uint32(sum(1 << b for b in bits))
-    ok = (mask & need) == need
-    edges = np.flatnonzero(np.diff(np.concatenate(([0], ok.view(np.int8), [0]))))
-    return SegmentList(Segment(t0 + a * dt, t0 + b * dt)
-                       for a, b in zip(edges[::2], edges[1::2], strict=True)).coalesce()
+    return segments_from_mask((mask & need) == need, t0, 1.0 / dt)
 
 
 def _file_quality(f: _FileStrain, dq_level: str, injections: str):

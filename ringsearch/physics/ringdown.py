@@ -3,8 +3,9 @@
 Three layers, each usable on its own:
 
 1. Plain real damped sinusoids and their analytic Fourier transforms
-   (:func:`damped_sinusoid`, :func:`damped_sinusoid_fd`) — the basis the
-   search filters with.
+   (:func:`damped_sinusoid`, :func:`damped_sinusoid_fd`); the time-domain
+   one is built on :func:`ringsearch.physics.basis.damped_basis`, the basis
+   the search filters with.
 2. Sums of complex QNM terms with explicit complex frequencies (rad/s),
    complex amplitudes and angular factors (:func:`mode_polarizations`,
    :func:`mode_polarizations_fd`), in time and frequency domain.
@@ -56,6 +57,7 @@ from typing import Any
 import numpy as np
 
 from ringsearch.errors import InputError
+from ringsearch.physics.basis import damped_basis
 from ringsearch.physics.units import MPC_M, MSUN_M, MSUN_S
 
 __all__ = [
@@ -107,13 +109,13 @@ def damped_sinusoid(times: Any, f_hz: Any, tau_s: Any, t0: float = 0.0, phase: A
                        for x in np.broadcast_arrays(f_hz, tau_s, phase, amplitude))
     if np.any(tau <= 0) or not np.all(np.isfinite(tau)):
         raise InputError(f"tau_s must be positive and finite, got {np.ravel(tau_s)[:3]}.")
-    s = times - t0
-    on = s >= 0
-    sc = np.where(on, s, 0.0)
-    scalar = f.ndim == 1  # all parameters scalar: result has the shape of ``times``
-    if scalar:
+    if f.ndim == 1:  # all parameters scalar: result has the shape of ``times``
         f, tau, ph, amp = f[0], tau[0], ph[0], amp[0]
-    return amp * np.exp(-sc / tau) * np.cos(2.0 * np.pi * f * sc + ph) * on
+    # one single-mode basis pair per output element (parameters broadcast against times)
+    s, f, tau = np.broadcast_arrays(times - t0, f, tau)
+    u = damped_basis(s.reshape(-1, 1), f.reshape(-1, 1), tau.reshape(-1, 1))  # (m, 2, 1)
+    cos_row, sin_row = u[:, 0, 0].reshape(s.shape), u[:, 1, 0].reshape(s.shape)
+    return amp * (np.cos(ph) * cos_row - np.sin(ph) * sin_row)
 
 
 def damped_sinusoid_fd(freqs: Any, f_hz: Any, tau_s: Any, amplitude: Any = 1.0,

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 
 from ringsearch import __version__
-from ringsearch.files import write_text
+from ringsearch.files import json_safe, write_text
 
 _CSS = """
 body { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; margin: 2em auto;
@@ -112,7 +112,7 @@ def write_report(out: str | Path, figures: dict[str, Path], runtime_s: float | N
     manifest = json.loads((out / "campaign.json").read_text())
     toml_text = (out / "campaign.toml").read_text() if (out / "campaign.toml").exists() else ""
     if not toml_text.strip():
-        toml_text = json.dumps(manifest.get("config", {}), indent=2)
+        toml_text = json.dumps(json_safe(manifest.get("config", {})), indent=2, allow_nan=False)
     sigmoid = _read_csv(out / "sigmoid.csv")
     sensitivity = _read_csv(out / "sensitivity.csv")
     thresholds = _read_csv(out / "threshold.csv")
