@@ -86,3 +86,78 @@ def test_file_data_reuse_and_segments():
     assert stretches["gps_start"].min() == 4.0 and stretches["gps_end"].max() == 32.0
     chunks, inj = plan_campaign(spec, segs)
     assert chunks["round"].max() <= 2 and len(inj) == 20
+
+
+# ------------------------------------------------------------- listed injections
+
+
+def listed_spec(tmp_path, times, **data):
+    from test_campaign_spec import listed, write_list
+
+    write_list(tmp_path, times)
+    raw = listed()
+    raw["data"].update(data)
+    return spec_from_dict(raw, base=tmp_path)
+
+
+def test_listed_plan_on_synthetic_data_lays_chunks_around_the_rows(tmp_path):
+    from ringsearch.data.injections import check_injection_table
+
+    t0 = 1.3e9
+    spec = listed_spec(tmp_path, [9.0, 5.0, 30.0, 44.5, 50.5])  # chunk_s 16, pad_s 2
+    chunks, inj = plan_campaign(spec)
+    assert inj["injection_id"].tolist() == [0, 1, 2, 3, 4]
+    # a chunk starts pad_s before the first row it covers; 44.5 needs a chunk overlapping
+    # the one of 30 (which ends at 44), and 50.5 fits in that second one
+    assert (chunks["gps_start"] - t0).tolist() == [3.0, 28.0, 42.5]
+    assert chunks["n_injections"].tolist() == [2, 1, 2]
+    assert inj["chunk"].tolist() == [0, 0, 1, 2, 2]
+    merged = inj.merge(chunks, on="chunk")
+    assert ((merged["gps"] >= merged["gps_start"] + 2.0)
+            & (merged["gps"] <= merged["gps_end"] - 2.0)).all()
+    # the same columns as a drawn plan of the same kind, and both pass the schema check
+    drawn = plan_campaign(make(injections__count=5))[1]
+    assert inj.columns.tolist() == drawn.columns.tolist()
+    assert (inj.dtypes == drawn.dtypes).all()
+    for table in (inj, drawn):
+        check_injection_table(table.drop(columns="chunk"))
+    a, b = plan_campaign(spec)
+    assert a.equals(chunks) and b.equals(inj)
+
+
+def test_listed_plan_on_file_data_uses_the_segments(tmp_path):
+    t0 = 1.3e9
+    spec = listed_spec(tmp_path, [5.0, 9.0, 24.0])
+    spec.config["data"].update({"source": "files", "gps_start": None, "gps_end": None})
+    segs = [[(t0, t0 + 40.0)], [(t0 + 1.0, t0 + 40.0)]]   # 39 s: two stretches of 19.5 s
+    chunks, inj = plan_campaign(spec, segs)
+    assert (chunks["gps_start"] - t0).tolist() == [1.0, 20.5]
+    assert len(chunks) == 2 and chunks["round"].tolist() == [0, 0]
+    assert inj["chunk"].tolist() == [0, 0, 1]
+    # a row that only one detector's data hold lies in no chunk
+    with pytest.raises(InputError, match="listed injection 0 at GPS 1300000005.000000"):
+        plan_campaign(spec, [[(t0, t0 + 32.0)], [(t0 + 6.0, t0 + 40.0)]])
+
+
+@pytest.mark.parametrize("times, data, words", [
+    ([5.0, 6.5], {}, ["listed injections 0 and 1", "injections.spacing_s"]),
+    ([5.0, 22.0], {"avoid": [[1.3e9 + 20.0, 1.3e9 + 21.5]]},
+     ["listed injection 1", "data.avoid"]),
+])
+def test_listed_plan_refusals(tmp_path, times, data, words):
+    spec = listed_spec(tmp_path, times, **data)
+    with pytest.raises(InputError) as err:
+        plan_campaign(spec)
+    message = str(err.value)
+    assert message.endswith(".") and ". " not in message
+    for w in words:
+        assert w in message
+
+
+def test_listed_plan_refuses_a_list_changed_after_the_spec(tmp_path):
+    from test_campaign_spec import write_list
+
+    spec = listed_spec(tmp_path, [5.0, 9.0])
+    write_list(tmp_path, [5.0, 10.0])
+    with pytest.raises(InputError, match="changed after campaign"):
+        plan_campaign(spec)

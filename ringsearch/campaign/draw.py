@@ -11,6 +11,16 @@ injections.  The same spec gives bit-identical tables.
 File data can be reused (``data.reuse = R``): each stretch then hosts R
 independent rounds of injections, one round per chunk, so a short stretch of
 open data still supports a campaign of hundreds of injections.
+
+A listed campaign (``injections.file``) draws nothing: each row goes to the
+chunk that holds its ``gps`` at least ``data.pad_s`` from the chunk's edges.
+Synthetic chunks are then laid out around the rows: a chunk starts
+``data.pad_s`` before the earliest row not yet covered (on the sample grid
+from ``data.gps_start``) and takes every row up to ``data.pad_s`` before its
+end, so chunks exist only where rows fall (two may overlap in time; their
+noise is independent).  Either way the injection table has the schema of
+:mod:`ringsearch.data.injections` plus ``chunk``, and passes
+:func:`~ringsearch.data.injections.check_injection_table`.
 """
 
 from __future__ import annotations
@@ -21,7 +31,9 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from ringsearch.campaign.spec import CampaignSpec
+from ringsearch.campaign.spec import CampaignSpec, file_sha256
+from ringsearch.data.injections import check_injection_table, read_injection_table
+from ringsearch.data.segments import as_segments
 from ringsearch.errors import InputError
 
 #: Stream labels mixed into the seed so every random stream is independent.
@@ -83,36 +95,59 @@ def _angle(dist: dict, name: str, rng: np.random.Generator, n: int) -> np.ndarra
     return rng.uniform(0.0, np.pi, n)
 
 
-def _subtract(segments: list[tuple[float, float]], windows) -> list[tuple[float, float]]:
-    out = []
-    for a, b in segments:
-        pieces = [(a, b)]
-        for wa, wb in windows:
-            nxt = []
-            for pa, pb in pieces:
-                if wb <= pa or wa >= pb:
-                    nxt.append((pa, pb))
-                    continue
-                if wa > pa:
-                    nxt.append((pa, wa))
-                if wb < pb:
-                    nxt.append((wb, pb))
-            pieces = nxt
-        out.extend(pieces)
+def _clear_of(times: np.ndarray, half_width: float, windows) -> np.ndarray:
+    """True where ``[t - half_width, t + half_width]`` does not overlap an avoided window."""
+    from gwpy.segments import Segment
+
+    avoid = as_segments(windows)
+    return np.array([not avoid.intersects_segment(Segment(t - half_width, t + half_width))
+                     for t in times], dtype=bool)
+
+
+def listed_injections(spec: CampaignSpec) -> pd.DataFrame:
+    """The rows of a listed campaign's ``injections.file``, checked and normalised.
+
+    Raises InputError when the file is gone or its bytes changed since the spec
+    was read (its SHA-256 is part of the configuration hash).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> from ringsearch.campaign.spec import spec_from_dict
+    >>> folder = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (folder / "l.csv").write_text("gps,mass,spin,injected_overtones,ra,dec,"
+    ...     "inclination,polarization,target_snr\\n1300000010,60,0.7,0,1,0.2,0.4,0.1,9\\n")
+    >>> spec = spec_from_dict({"campaign": {"seed": 1},
+    ...     "data": {"source": "synthetic", "detectors": ["H1"], "chunk_s": 16},
+    ...     "injections": {"file": "l.csv"}, "search": {"mass": [50, 70], "spin": [0.6, 0.8]},
+    ...     "threshold": {"snr": 6}}, base=folder)
+    >>> listed_injections(spec)["target_snr"].tolist()
+    [9.0]
+    """
+    inj = spec.injections
+    path = inj["file"]
+    try:
+        digest = file_sha256(path)
+    except OSError:
+        raise InputError(f"the injection list {path} of campaign {spec.source} cannot be "
+                         f"read any more.") from None
+    if digest != inj["file_sha256"]:
+        raise InputError(f"the injection list {path} changed after campaign {spec.source} "
+                         f"was read; load the campaign again.")
+    return read_injection_table(path)
+
+
+def _listed_stretches(spec: CampaignSpec, times: np.ndarray) -> list[tuple[float, float]]:
+    """Synthetic chunks laid out around listed times (see the module docstring)."""
+    data = spec.data
+    pad, length, fs, t0 = data["pad_s"], data["chunk_s"], data["sample_rate"], data["gps_start"]
+    out: list[tuple[float, float]] = []
+    for t in np.sort(times):
+        if out and t <= out[-1][1] - pad + 1e-9:
+            continue
+        a = t0 + math.floor((t - pad - t0) * fs) / fs
+        out.append((a, a + length))
     return out
-
-
-def _intersect(per_detector: Sequence[Sequence[tuple[float, float]]]) -> list[tuple[float, float]]:
-    common = sorted((float(a), float(b)) for a, b in per_detector[0])
-    for segs in per_detector[1:]:
-        nxt = []
-        for a, b in common:
-            for c, d in segs:
-                lo, hi = max(a, float(c)), min(b, float(d))
-                if hi > lo:
-                    nxt.append((lo, hi))
-        common = sorted(nxt)
-    return common
 
 
 def data_chunks(spec: CampaignSpec, segments: Sequence[Sequence[tuple[float, float]]] | None
@@ -125,13 +160,15 @@ def data_chunks(spec: CampaignSpec, segments: Sequence[Sequence[tuple[float, flo
     segments : list of list of (start, end), optional
         Analysable GPS segments per detector (file data).  Ignored for
         synthetic data, whose stretch is ``data.duration_s`` long (or just
-        long enough for the injections when that is not given).
+        long enough for the injections when that is not given, or laid out
+        around the rows of a listed campaign).
 
     Returns
     -------
     pandas.DataFrame
         One row per data stretch: ``data_index, gps_start, gps_end, n_slots``
-        and ``slots`` (array of slot GPS times).
+        and ``slots`` (array of slot GPS times; for a listed campaign, the
+        listed times the stretch holds at least ``data.pad_s`` from its edges).
 
     Examples
     --------
@@ -147,7 +184,10 @@ def data_chunks(spec: CampaignSpec, segments: Sequence[Sequence[tuple[float, flo
     data, inj = spec.data, spec.injections
     chunk_s, pad, spacing = data["chunk_s"], data["pad_s"], inj["spacing_s"]
     per_chunk = int(math.floor((chunk_s - 2 * pad) / spacing + 1e-9))
-    if data["source"] == "synthetic":
+    listed = listed_injections(spec)["gps"].to_numpy() if "file" in inj else None
+    if data["source"] == "synthetic" and listed is not None:
+        stretches = _listed_stretches(spec, listed)
+    elif data["source"] == "synthetic":
         if data["duration_s"] is None:
             n_chunks = max(1, math.ceil(inj["count"] / max(per_chunk, 1)))
         else:
@@ -160,13 +200,16 @@ def data_chunks(spec: CampaignSpec, segments: Sequence[Sequence[tuple[float, flo
     else:
         if segments is None:
             raise InputError("file data need their analysable segments to place injections.")
-        common = _intersect(segments)
+        common = as_segments(segments[0])
+        for segs in segments[1:]:
+            common &= as_segments(segs)
         if data.get("gps_start") is not None or data.get("gps_end") is not None:
             lo = data.get("gps_start") or -np.inf
             hi = data.get("gps_end") or np.inf
-            common = [(max(a, lo), min(b, hi)) for a, b in common if min(b, hi) > max(a, lo)]
+            common &= as_segments([(lo, hi)])
         stretches = []
-        for a, b in common:
+        for seg in common:
+            a, b = float(seg[0]), float(seg[1])
             length = b - a
             if length < 2 * pad + spacing:
                 continue
@@ -175,12 +218,15 @@ def data_chunks(spec: CampaignSpec, segments: Sequence[Sequence[tuple[float, flo
             stretches.extend((a + i * step, a + (i + 1) * step) for i in range(n))
     rows = []
     for i, (a, b) in enumerate(stretches):
+        if listed is not None:
+            slots = np.sort(listed[(listed >= a + pad - 1e-9) & (listed <= b - pad + 1e-9)])
+            rows.append({"data_index": i, "gps_start": a, "gps_end": b,
+                         "n_slots": int(slots.size), "slots": slots})
+            continue
         k = int(math.floor((b - a - 2 * pad) / spacing + 1e-9))
         slots = a + pad + spacing * (np.arange(k) + 0.5)
         # Drop slots whose spacing interval touches an avoided window.
-        keep = np.ones(k, bool)
-        for wa, wb in data["avoid"]:
-            keep &= (slots + spacing / 2 <= wa) | (slots - spacing / 2 >= wb)
+        keep = _clear_of(slots, spacing / 2, data["avoid"])
         rows.append({"data_index": i, "gps_start": a, "gps_end": b,
                      "n_slots": int(keep.sum()), "slots": slots[keep]})
     return pd.DataFrame(rows, columns=["data_index", "gps_start", "gps_end", "n_slots", "slots"])
@@ -212,7 +258,10 @@ def plan_campaign(spec: CampaignSpec, segments=None) -> tuple[pd.DataFrame, pd.D
     ------
     InputError
         If the data cannot hold ``injections.count`` injections at the
-        requested spacing.
+        requested spacing; for a listed campaign, if a row lies in no chunk
+        (at least ``data.pad_s`` from its edges), within half of
+        ``injections.spacing_s`` of an avoided window, or closer than
+        ``injections.spacing_s`` to another row.
 
     Examples
     --------
@@ -227,6 +276,8 @@ def plan_campaign(spec: CampaignSpec, segments=None) -> tuple[pd.DataFrame, pd.D
     (10, 10)
     """
     data, inj = spec.data, spec.injections
+    if "file" in inj:
+        return _plan_listed(spec, segments)
     stretches = data_chunks(spec, segments)
     rounds = data["reuse"]
     capacity = int(stretches["n_slots"].sum()) * rounds
@@ -293,7 +344,52 @@ def plan_campaign(spec: CampaignSpec, segments=None) -> tuple[pd.DataFrame, pd.D
     else:
         table["distance_mpc"] = sample(loud["distance_mpc"], rng, n)
         table["epsilon"] = sample(loud["epsilon"], rng, n)
-    injections = pd.DataFrame(table)
+    chunk = table.pop("chunk")
+    injections = check_injection_table(pd.DataFrame(table),
+                                       origin=f"the injections drawn for {spec.source}")
+    injections.insert(1, "chunk", chunk)
     sizes = injections.groupby("chunk").size()
     chunks["n_injections"] = chunks["chunk"].map(sizes).astype(np.int64)
+    return chunks, injections
+
+
+def _plan_listed(spec: CampaignSpec, segments) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """:func:`plan_campaign` for ``injections.file``: place each listed row in its chunk."""
+    data, spacing, pad = spec.data, spec.injections["spacing_s"], spec.data["pad_s"]
+    table = listed_injections(spec)
+    stretches = data_chunks(spec, segments)
+    gps = table["gps"].to_numpy()
+    ids = table["injection_id"].to_numpy()
+    where = np.full(gps.size, -1, dtype=np.int64)
+    for row in stretches.itertuples():
+        inside = (where < 0) & np.isin(gps, row.slots)
+        where[inside] = row.data_index
+    if (where < 0).any():
+        k = int(np.argmax(where < 0))
+        raise InputError(f"listed injection {ids[k]} at GPS {gps[k]:.6f} lies in no data chunk "
+                         f"at least 'data.pad_s' = {pad:g} s from its edges ({spec.source}).")
+    clear = _clear_of(gps, spacing / 2, data["avoid"])
+    if not clear.all():
+        k = int(np.argmax(~clear))
+        raise InputError(f"listed injection {ids[k]} at GPS {gps[k]:.6f} is within half of "
+                         f"'injections.spacing_s' = {spacing:g} s of a 'data.avoid' window "
+                         f"({spec.source}).")
+    order = np.argsort(gps, kind="stable")
+    close = np.flatnonzero(np.diff(gps[order]) < spacing - 1e-9)
+    if close.size:
+        a, b = order[close[0]], order[close[0] + 1]
+        raise InputError(f"listed injections {ids[a]} and {ids[b]} (GPS {gps[a]:.6f} and "
+                         f"{gps[b]:.6f}) are closer than 'injections.spacing_s' = "
+                         f"{spacing:g} s ({spec.source}).")
+    used = np.unique(where)
+    chunk_of = {int(d): i for i, d in enumerate(used)}
+    by_index = stretches.set_index("data_index")
+    chunks = pd.DataFrame(
+        [{"chunk": i, "data_index": d, "round": 0,
+          "gps_start": float(by_index.loc[d, "gps_start"]),
+          "gps_end": float(by_index.loc[d, "gps_end"]),
+          "n_injections": int((where == d).sum())} for d, i in chunk_of.items()],
+        columns=["chunk", "data_index", "round", "gps_start", "gps_end", "n_injections"])
+    injections = table.copy()
+    injections.insert(1, "chunk", np.array([chunk_of[int(d)] for d in where], dtype=np.int64))
     return chunks, injections

@@ -11,6 +11,20 @@ The normalised spec is a plain nested dict (``spec.config``) holding every
 value with its default filled in; its SHA-256 (``spec.config_hash``) is what
 the output folder records so that a changed campaign is refused on resume.
 
+Injections are either drawn from distributions (``count``, ``mass``,
+``spin``, ``loudness``, ...) or listed: ``[injections] file = "list.csv"``
+(CSV or Parquet, path relative to the campaign file, schema in
+:mod:`ringsearch.data.injections`), with ``spacing_s`` the only other key.
+The list is read and checked when the spec is built.  The normalised config
+holds its resolved path and the SHA-256 of the file's bytes
+(``injections.file_sha256``), not the rows: the config stays small (it goes
+to every chunk's worker) and its hash still changes whenever the list does;
+:func:`ringsearch.campaign.draw.plan_campaign` reads the rows again and
+refuses a file whose bytes no longer match.  ``injections.count`` and
+``injections.overtones`` are then derived from the list (number of rows,
+distinct ``injected_overtones``).  A search bank given as ``search.bank`` is
+recorded the same way (path and ``search.bank_sha256``).
+
 Example campaign file::
 
     [campaign]
@@ -37,6 +51,10 @@ Example campaign file::
     spin = [0.3, 0.9]
     min_match = 0.9
     template_overtones = [0, 1]
+    snr_threshold = 5.0    # per-detector trigger threshold of the search engine
+    veto = true            # chi-squared signal-consistency veto ...
+    veto_bins = 8          # ... in 8 time slices
+    tolerance_s = 0.01     # timing allowance added to the light-travel time
 
     [threshold]
     snr = 7.0
@@ -45,6 +63,12 @@ Example campaign file::
     enabled = true
     max_overtones = 2
     log10_bayes_threshold = 0.5
+
+A listed campaign replaces the drawn ``[injections]`` table by::
+
+    [injections]
+    file = "my-ringdowns.csv"   # gps, mass, spin, injected_overtones, ratio_n, ...
+    spacing_s = 2.0             # listed injections closer than this are refused
 """
 
 from __future__ import annotations
@@ -305,12 +329,13 @@ def _read_data(t: _Table, origin: str, base: Path) -> dict:
     if 2 * data["pad_s"] >= data["chunk_s"]:
         raise InputError(f"'data.pad_s' = {data['pad_s']} in {origin} leaves no room in "
                          f"chunks of data.chunk_s = {data['chunk_s']} s.")
-    data["psd_seglen_s"] = t.number("psd_seglen_s", 2.0, lo=0.125)
+    # the default of the search's conditioning (ringsearch.data.condition.condition)
+    data["psd_seglen_s"] = t.number("psd_seglen_s", 4.0, lo=0.125)
     data["reuse"] = t.number("reuse", 1, lo=1, hi=100000, integer=True)
     data["avoid"] = _windows(t.raw("avoid", []), "data.avoid", origin)
-    # Gate loud transients (the data layer's default threshold).  Synthetic Gaussian
-    # noise has no glitches, so there it would only gate the loudest injections.
-    data["gating"] = t.boolean("gating", data["source"] == "files")
+    # Gate loud transients at the data layer's default threshold, for synthetic data too:
+    # the search always gates, and a campaign measures that search.
+    data["gating"] = t.boolean("gating", True)
     data["whiten_with"] = t.string("whiten_with", "estimate", choices=("estimate", "model"))
     if data["source"] == "synthetic":
         dets = t.raw("detectors", ["H1", "L1"])
@@ -367,7 +392,79 @@ def _read_data(t: _Table, origin: str, base: Path) -> dict:
     return data
 
 
-def _read_injections(t: _Table, origin: str) -> dict:
+#: Keys of a drawn ``[injections]`` table that a listed one (``file``) must not have.
+_DRAW_KEYS = ("count", "overtones", "jitter_s", "align_to_samples", "mass", "spin",
+              "overtone_ratio", "overtone_phase", "phase", "ra", "dec", "inclination",
+              "polarization", "loudness")
+
+
+def _resolve(value: str, base: Path) -> Path:
+    path = Path(value).expanduser()
+    return path if path.is_absolute() else (base / path).resolve()
+
+
+def file_sha256(path: str | Path) -> str:
+    """SHA-256 hex digest of a file's bytes (how listed injections and banks enter the hash).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "x.csv"
+    >>> _ = p.write_bytes(b"")
+    >>> file_sha256(p)[:12]
+    'e3b0c44298fc'
+    """
+    return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+
+
+def _read_injection_list(t: _Table, origin: str, base: Path, data: dict) -> dict:
+    """``[injections] file = ...``: the listed injections, checked now, recorded by hash."""
+    import numpy as np
+
+    from ringsearch.data.injections import read_injection_table
+    from ringsearch.physics.qnm import mode_f_tau
+
+    for key in t.table:
+        if key in _DRAW_KEYS:
+            raise InputError(f"'injections.{key}' in {origin} cannot be given with "
+                             f"'injections.file' (the list gives every injection).")
+    path = _resolve(t.string("file"), base)
+    if not path.is_file():
+        raise InputError(f"'injections.file' in {origin} names a file that does not exist: "
+                         f"{path}.")
+    digest = file_sha256(path)
+    table = read_injection_table(path)
+    inj: dict[str, Any] = {
+        "file": str(path), "file_sha256": digest, "count": len(table),
+        "overtones": sorted(int(n) for n in table["injected_overtones"].unique()),
+        "spacing_s": t.number("spacing_s", 2.0, lo=0, lo_open=True)}
+    t.finish()
+    fs = data["sample_rate"]
+    n_over = table["injected_overtones"].to_numpy()
+    for n in range(int(n_over.max()) + 1):
+        sel = np.flatnonzero(n_over >= n)
+        f = np.atleast_1d(mode_f_tau(table["mass"].to_numpy()[sel],
+                                     table["spin"].to_numpy()[sel], 2, 2, n)[0])
+        if (f >= fs / 2).any():
+            k = int(sel[np.argmax(f >= fs / 2)])
+            raise InputError(f"injection {int(table['injection_id'][k])} of {path} puts mode "
+                             f"(2,2,{n}) at {float(f[np.argmax(f >= fs / 2)]):.0f} Hz, above "
+                             f"the Nyquist frequency {fs / 2:g} Hz of 'data.sample_rate' in "
+                             f"{origin}.")
+    if data["source"] == "synthetic":
+        k = int(table["gps"].to_numpy().argmin())
+        first = float(table["gps"][k])
+        if data["gps_start"] > first - data["pad_s"]:
+            raise InputError(f"'data.gps_start' = {data['gps_start']:.6f} in {origin} must be "
+                             f"at or before {first - data['pad_s']:.6f}, the earliest listed "
+                             f"injection ({int(table['injection_id'][k])} at GPS {first:.6f}) "
+                             f"less 'data.pad_s'.")
+    return inj
+
+
+def _read_injections(t: _Table, origin: str, base: Path, data: dict) -> dict:
+    if t.has("file"):
+        return _read_injection_list(t, origin, base, data)
     inj: dict[str, Any] = {}
     inj["count"] = t.number("count", lo=1, hi=10_000_000, integer=True)
     inj["overtones"] = _int_list(t.raw("overtones", [0]), "injections.overtones", origin, 0, 7)
@@ -418,13 +515,36 @@ def _read_injections(t: _Table, origin: str) -> dict:
     return inj
 
 
-def _read_search(t: _Table, origin: str) -> dict:
+def _read_search(t: _Table, origin: str, base: Path) -> dict:
     s: dict[str, Any] = {}
     s["mass"] = _range(t.raw("mass"), "search.mass", origin, lo=0, lo_open=True)
     s["spin"] = _range(t.raw("spin"), "search.spin", origin, lo=0, hi=1, hi_open=True)
     s["min_match"] = t.number("min_match", 0.95, lo=0.5, hi=1, hi_open=True)
-    s["template_overtones"] = _int_list(t.raw("template_overtones", [0]),
-                                        "search.template_overtones", origin, 0, 7)
+    bank = t.string("bank", None)
+    if bank is None:
+        s["bank"] = s["bank_sha256"] = None
+        s["template_overtones"] = _int_list(t.raw("template_overtones", [0]),
+                                            "search.template_overtones", origin, 0, 7)
+    else:
+        path = _resolve(bank, base)
+        if not path.is_file():
+            raise InputError(f"'search.bank' in {origin} names a file that does not exist: "
+                             f"{path}.")
+        s["bank"], s["bank_sha256"] = str(path), file_sha256(path)
+        # None: the bank's own overtone count (the worker reads it and checks a given one)
+        value = t.raw("template_overtones", None)
+        s["template_overtones"] = None if value is None else _int_list(
+            value, "search.template_overtones", origin, 0, 7)
+        if s["template_overtones"] is not None and len(s["template_overtones"]) != 1:
+            raise InputError(f"'search.template_overtones' in {origin} must be omitted or one "
+                             f"value with 'search.bank' (a bank has one overtone count).")
+    # The search engine's settings; the defaults are those of `ringsearch search`.
+    s["snr_threshold"] = t.number("snr_threshold", 5.0, lo=0, lo_open=True)
+    s["veto"] = t.boolean("veto", True)
+    s["veto_bins"] = t.number("veto_bins", 8, lo=2, hi=1000, integer=True)
+    s["veto_domain"] = t.string("veto_domain", "time", choices=("time", "frequency"))
+    s["tolerance_s"] = t.number("tolerance_s", 0.01, lo=0, hi=1)
+    s["cluster_window_s"] = t.number("cluster_window_s", None, lo=0, lo_open=True)
     s["match_window_s"] = t.number("match_window_s", 0.01, lo=0)
     s["f_high"] = t.number("f_high", None, lo=0, lo_open=True)
     s["max_templates"] = t.number("max_templates", 20000, lo=1, integer=True)
@@ -445,7 +565,9 @@ def _read_threshold(t: _Table, origin: str) -> dict:
         th["snr"] = None
         th["far_per_year"] = t.number("far_per_year", lo=0, lo_open=True)
     th["slides"] = t.number("slides", 20, lo=0, hi=100000, integer=True)
-    th["slide_step_s"] = t.number("slide_step_s", 0.5, lo=0, lo_open=True)
+    # None: chosen by the search engine (longer than the coincidence window, the
+    # longest template and the clustering window)
+    th["slide_step_s"] = t.number("slide_step_s", None, lo=0, lo_open=True)
     t.finish()
     return th
 
@@ -555,8 +677,9 @@ def spec_from_dict(raw: dict, origin: str = "<dict>", base: str | Path = ".",
     camp.finish()
     base = Path(base)
     config["data"] = _read_data(top.sub("data"), origin, base)
-    config["injections"] = _read_injections(top.sub("injections"), origin)
-    config["search"] = _read_search(top.sub("search"), origin)
+    config["injections"] = _read_injections(top.sub("injections"), origin, base,
+                                            config["data"])
+    config["search"] = _read_search(top.sub("search"), origin, base)
     config["threshold"] = _read_threshold(top.sub("threshold"), origin)
     config["report"] = _read_report(top.sub("report", {}), origin)
     overtones = _read_overtones(top.sub("overtones", {}), origin, config["search"])
@@ -574,6 +697,17 @@ def _cross_checks(config: dict, origin: str) -> None:
     if search["f_high"] is not None and search["f_high"] > data["sample_rate"] / 2:
         raise InputError(f"'search.f_high' = {search['f_high']} Hz in {origin} is above the "
                          f"Nyquist frequency {data['sample_rate'] / 2} Hz.")
+    if data["psd_seglen_s"] > data["chunk_s"]:
+        raise InputError(f"'data.psd_seglen_s' = {data['psd_seglen_s']} s in {origin} is longer "
+                         f"than a chunk ('data.chunk_s' = {data['chunk_s']} s).")
+    if "file" in inj:
+        if data["reuse"] != 1:
+            raise InputError(f"'data.reuse' in {origin} must be 1 with 'injections.file' "
+                             f"(each listed injection is placed once, at its own time).")
+        if data.get("duration_s") is not None:
+            raise InputError(f"'data.duration_s' in {origin} cannot be given with "
+                             f"'injections.file' (synthetic chunks are laid out around the "
+                             f"listed injections).")
     usable = data["chunk_s"] - 2 * data["pad_s"]
     if inj["spacing_s"] > usable:
         raise InputError(f"'injections.spacing_s' = {inj['spacing_s']} in {origin} is longer "

@@ -11,6 +11,11 @@ psd
 condition
     Whitening with inverse-spectrum truncation, band limiting and gating into a
     :class:`~ringsearch.data.condition.ConditionedData` the search takes.
+inject
+    Add signals to strain (only on their support) and their sampled-signal SNRs.
+injections
+    Injection lists (one ringdown per row): schema, checks, CSV/Parquet files and
+    the sources they make, shared by ``ringsearch inject`` and campaigns.
 plots
     ASD, whitened time series and time-frequency figures.
 
