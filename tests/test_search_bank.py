@@ -9,7 +9,7 @@ from test_search_support import WhiteConditioned, damped_sinusoids, use_referenc
 
 from ringsearch.errors import InputError
 from ringsearch.search.bank import Bank, white_cross_gram
-from ringsearch.search.filter import snr_series
+from ringsearch.search.correlate import snr_series
 
 
 @pytest.fixture(autouse=True)

@@ -5,17 +5,18 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
-from test_search_support import WhiteConditioned, damped_sinusoids, use_reference_qnm, white_data
+from test_search_support import (
+    WhiteConditioned,
+    damped_sinusoids,
+    search_triggers,
+    use_reference_qnm,
+    white_data,
+)
 
 from ringsearch.errors import InputError
 from ringsearch.search.bank import Bank, white_cross_gram
-from ringsearch.search.filter import (
-    filter_candidates,
-    matched_filter,
-    prepare_templates,
-    projection_snr,
-    snr_series,
-)
+from ringsearch.search.correlate import filter_peaks, projection_snr, snr_series
+from ringsearch.search.templates import prepare_templates
 
 FS = 2048.0
 
@@ -107,7 +108,7 @@ def test_injections_recovered_with_noncentral_chi2_snr_and_right_parameters(monk
                      ** 2 for i in range(24)])
     # KS at 0.1 %: false-failure probability 1e-3
     assert stats.kstest(rho2, stats.ncx2(2, 400.0).cdf).pvalue > 1e-3
-    trig = matched_filter(cond, bank, 8.0)
+    trig = search_triggers(cond, bank, 8.0)
     assert len(trig) == 24  # one signal, one trigger; noise never reaches 8 here
     trig = trig.sort_values("gps").reset_index(drop=True)
     dt = trig.gps.to_numpy() - (cond.t0 + starts)
@@ -128,13 +129,13 @@ def test_chunked_filter_equals_single_fft():
     rng = np.random.default_rng(3)
     cond = white_data(40.0, FS, rng, f_high=900.0, taper_hz=20.0)
     f, tau = np.array([[250.0]]), np.array([[0.01]])
-    a, _ = filter_candidates(cond, f, tau, 0.01, 0.05)  # every bin's maximum
-    import ringsearch.search.filter as flt
+    a, _ = filter_peaks(cond, f, tau, 0.01, 0.05)  # every bin's maximum
+    import ringsearch.search.correlate as flt
 
     orig = flt.plan_chunks
     try:
         flt.plan_chunks = lambda *args, **kw: orig(*args, **{**kw, "max_single_s": 1.0})
-        c, _ = filter_candidates(cond, f, tau, 0.01, 0.05, chunk_s=2.0)
+        c, _ = filter_peaks(cond, f, tau, 0.01, 0.05, chunk_s=2.0)
         assert flt.plan_chunks(cond.whitened_values.size, FS, 0.08, 100, 2.0).n_chunks > 5
     finally:
         flt.plan_chunks = orig
@@ -142,7 +143,7 @@ def test_chunked_filter_equals_single_fft():
     wbin = round(0.05 * FS)
 
     def per_bin(x):
-        return x.assign(b=x["sample"] // wbin).groupby("b").snr.max()
+        return x.assign(b=x["sample"] // wbin).groupby("b").snr_grid.max()
 
     pa, pc = per_bin(a), per_bin(c)
     assert len(pa) > 10
@@ -179,11 +180,11 @@ def test_bad_input_is_one_sentence():
     cond = white_data(0.2, FS, np.random.default_rng(0), f_high=900.0)
     bank = Bank.from_points([200.0], [0.99])
     with pytest.raises(InputError, match="shorter than the longest template"):
-        matched_filter(cond, bank)
+        search_triggers(cond, bank)
     cond = white_data(8.0, FS, np.random.default_rng(0), f_high=900.0)
     with pytest.raises(InputError, match="threshold"):
-        matched_filter(cond, bank, snr_threshold=-1)
+        search_triggers(cond, bank, snr_threshold=-1)
     bad = white_data(8.0, FS, np.random.default_rng(0), f_high=900.0)
     bad.whitened_values[10] = np.nan
     with pytest.raises(InputError, match="NaN"):
-        matched_filter(bad, bank)
+        search_triggers(bad, bank)

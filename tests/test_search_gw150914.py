@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 from conftest import GW150914_GPS
 
-from ringsearch.search.pipeline import run_search
+from ringsearch.search.engine import Search
 
 
 @pytest.mark.filterwarnings("ignore::Warning")
@@ -23,9 +23,9 @@ def test_gw150914_loudest_coincident_candidate(gw150914_files):
     # template 200.9 Hz at +2.1 ms; 221 Hz with 16 slices, 207 Hz at minimal match 0.9).
     # A damped sinusoid starting ~2 ms after the peak still sees the frequency rising
     # towards its final value, so the recovered f220 sits in the lower part of the range.
-    res = run_search(list(gw150914_files.values()), mass=(20.0, 200.0), spin=(0.0, 0.99),
-                     n_overtones=0, min_match=0.97, gps_start=GW150914_GPS - 1.0,
-                     gps_end=GW150914_GPS + 1.0)
+    res = Search(mass=(20.0, 200.0), spin=(0.0, 0.99), n_overtones=0, min_match=0.97,
+                 gps_start=GW150914_GPS - 1.0, gps_end=GW150914_GPS + 1.0
+                 ).run(list(gw150914_files.values()))
     best = res.summary["loudest_candidate"]
     assert set(best["detectors"]) == {"H1", "L1"}
     # published merger GPS 1126259462.42 (Abbott et al. 2016, PRL 116, 061102) # from memory

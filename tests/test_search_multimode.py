@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
-from test_search_support import damped_sinusoids, use_reference_qnm, white_data
+from test_search_support import damped_sinusoids, search_triggers, use_reference_qnm, white_data
 
 from ringsearch.search.bank import Bank
-from ringsearch.search.filter import matched_filter, projection_snr
+from ringsearch.search.correlate import projection_snr
 
 FS = 2048.0
 
@@ -40,8 +40,8 @@ def test_two_overtone_injection_louder_in_n2_bank_and_amplitudes_recovered():
     box = dict(mass=(55.0, 85.0), spin=(0.55, 0.85), f_high=900.0, seed=3)
     bank0 = Bank.from_box(n_overtones=0, **box)
     bank2 = Bank.from_box(n_overtones=2, **box)
-    t0 = matched_filter(cond, bank0, 8.0)
-    t2 = matched_filter(cond, bank2, 8.0)
+    t0 = search_triggers(cond, bank0, 8.0)
+    t2 = search_triggers(cond, bank2, 8.0)
     l0, l2 = t0.loc[t0.snr.idxmax()], t2.loc[t2.snr.idxmax()]
     assert abs(l2.gps - (cond.t0 + start)) < 0.01
     # N = 2 captures the overtones' power; one damped sinusoid absorbs most but not all of

@@ -141,3 +141,17 @@ def damped_sinusoids(n_samples, sample_rate, start_s, f_hz, tau_s, amps):
         ph = 2 * np.pi * f * t[on]
         out[on] += np.exp(-t[on] / tau) * (a.real * np.cos(ph) + a.imag * np.sin(ph))
     return out
+
+
+def search_triggers(cond, bank, snr_threshold: float = 5.0, *, veto: bool = False,
+                    veto_bins: int = 8, veto_domain: str = "time",
+                    gps_window: tuple[float, float] | None = None):
+    """The search engine's triggers of one detector's (stand-in) conditioned data."""
+    from ringsearch.search.engine import Search
+
+    kw = {}
+    if gps_window is not None:
+        kw = {"gps_start": gps_window[0], "gps_end": gps_window[1]}
+    search = Search(bank=bank, snr_threshold=snr_threshold, veto=veto, veto_bins=veto_bins,
+                    veto_domain=veto_domain, **kw)
+    return search.run({cond.detector: cond}).triggers

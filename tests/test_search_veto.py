@@ -5,11 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
-from test_search_support import damped_sinusoids, use_reference_qnm, white_data
+from test_search_support import damped_sinusoids, search_triggers, use_reference_qnm, white_data
 
 from ringsearch.errors import InputError
 from ringsearch.search.bank import Bank
-from ringsearch.search.filter import matched_filter
 from ringsearch.search.veto import chisq_at, reweighted_snr
 
 FS = 2048.0
@@ -115,7 +114,7 @@ def test_injected_ringdowns_keep_noise_like_chisq_and_are_not_down_weighted():
     u = [stats.chi2(d).cdf(c) for c, d in zip(chi2, dofs, strict=True)]
     assert stats.kstest(u, "uniform").pvalue > 1e-3
     bank = Bank.from_box((45.0, 120.0), (0.3, 0.9), 0, 0.97, f_high=900.0, seed=1)
-    trig = matched_filter(cond, bank, 8.0, veto_bins=8)
+    trig = search_triggers(cond, bank, 8.0, veto=True)
     assert len(trig) == 24
     assert np.all(np.abs(trig.sort_values("gps").gps.to_numpy() - (cond.t0 + starts)) < 0.01)
     assert np.median(trig.snr_reweighted / trig.snr) > 0.9
@@ -139,30 +138,41 @@ def _sweep(n, t_c, f0, f1, dur):
 @pytest.mark.parametrize("domain", ["time", "frequency"])
 @pytest.mark.parametrize("kind", ["sine-gaussian", "sweep"])
 def test_chirp_like_signals_get_large_chisq(domain, kind):
-    # A non-ringdown burst at SNR 20 is fitted by the bank's best damped sinusoid, but the
-    # fit leaves a residual that grows with SNR^2: the best raw-SNR template has a reduced
-    # chi^2 above 2 (noise alone exceeds that with probability 1.4 % at dof 14; measured
-    # here 2.4-7.1 over two noise seeds for both splits, the time split being the weaker
-    # on the sweep and the frequency split on the sine-Gaussian) and the search with the
-    # veto ranks the burst at least 20 % below its raw SNR (measured 0.56-0.75).
+    # A non-ringdown burst is fitted by the bank's best damped sinusoid, but the fit leaves
+    # a residual that grows with SNR^2.  At SNR 20 the best raw-SNR template, at its grid
+    # start, has a reduced chi^2 above 2 (noise alone exceeds that with probability 1.4 %
+    # at dof 14).  The search's ranking allows the bank's mismatch (chi^2 up to dof +
+    # m rho^2, m = 1/0.97^2 - 1 = 0.063, so that signals inside the box keep their SNR),
+    # which spares quiet bursts; loud ones are still down-weighted: at SNR 40 every case
+    # exceeds that expectation by 30 % and loses at least 8 % of its SNR (measured: reduced
+    # ratio 1.40-1.85, re-weighted / raw 0.68-0.88 over two noise seeds; at SNR 20 the
+    # ratio is 0.81-1.0).
+    from ringsearch.search.veto import mismatch_allowance
+
     n = int(12 * FS)
     h = (_sine_gaussian(n, 6.0, 150.0, 9.0) if kind == "sine-gaussian"
          else _sweep(n, 6.0, 80.0, 260.0, 0.08))
+    bank = Bank.from_box((40.0, 200.0), (0.0, 0.99), 0, 0.97, f_high=900.0, seed=1)
     cond = white_data(12.0, FS, np.random.default_rng(4), f_high=900.0,
                       signal=_scaled(h, 20.0))
-    bank = Bank.from_box((40.0, 200.0), (0.0, 0.99), 0, 0.97, f_high=900.0, seed=1)
     window = (cond.t0 + 5.7, cond.t0 + 6.3)
-    raw = matched_filter(cond, bank, 8.0, gps_window=window)
+    raw = search_triggers(cond, bank, 8.0, gps_window=window)
     best = raw.loc[raw.snr.idxmax()]
     assert best.snr > 10.0
     ti = int(np.flatnonzero(bank.table.template_id.to_numpy() == best.template_id)[0])
     chi2, snr, dof = chisq_at(cond, bank.f_hz[ti], bank.tau_s[ti],
                               [int(round((best.gps - cond.t0) * FS))], 8, domain)
-    assert snr[0] == pytest.approx(best.snr, rel=1e-2)
+    assert snr[0] == pytest.approx(best.snr, rel=3e-2)  # grid start vs refined start
     assert chi2[0] / dof > 2.0
-    vetoed = matched_filter(cond, bank, 8.0, gps_window=window, veto_bins=8,
-                            veto_domain=domain)
-    assert vetoed.snr_reweighted.max() < 0.8 * best.snr
+    loud = white_data(12.0, FS, np.random.default_rng(4), f_high=900.0,
+                      signal=_scaled(h, 40.0))
+    raw = search_triggers(loud, bank, 8.0, gps_window=window)
+    vetoed = search_triggers(loud, bank, 8.0, gps_window=window, veto=True,
+                             veto_domain=domain)
+    top = vetoed.loc[vetoed.snr_reweighted.idxmax()]
+    expect = top.chisq_dof + mismatch_allowance(0.97) * top.snr ** 2
+    assert top.chisq / expect > 1.3
+    assert top.snr_reweighted < 0.92 * raw.snr.max()
 
 
 def test_reweighting_form_and_bad_input():
@@ -175,6 +185,6 @@ def test_reweighting_form_and_bad_input():
     cond = white_data(8.0, FS, np.random.default_rng(0), f_high=900.0)
     bank = Bank.from_points([60.0], [0.7])
     with pytest.raises(InputError, match="veto bands"):
-        matched_filter(cond, bank, veto_bins=1)
+        search_triggers(cond, bank, veto=True, veto_bins=1)
     with pytest.raises(InputError, match="veto domain"):
-        matched_filter(cond, bank, veto_bins=8, veto_domain="wavelet")
+        search_triggers(cond, bank, veto=True, veto_domain="wavelet")

@@ -1,14 +1,14 @@
 """``ringsearch search``: search strain files for ringdowns; write triggers, candidates, plots.
 
-Thin wrapper over :func:`ringsearch.search.pipeline.run_search`; the whole
-output folder is built with :func:`ringsearch.files.staged_directory`, so bad
-input or an interruption leaves nothing in ``--out``.
+Thin layer over :class:`ringsearch.search.engine.Search` (the engine campaigns
+use too); :meth:`SearchResult.write` builds the whole output folder with
+:func:`ringsearch.files.staged_directory`, so bad input or an interruption
+leaves nothing in ``--out``.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import sys
 import textwrap
@@ -44,11 +44,26 @@ rho / [(1 + chi2_r^3)/2]^(1/6) for chi2_r = chisq/dof > 1 (Babak et al. 2013,
 PRD 87, 024033): clustering, coincidence, the network statistic and the FAR all
 use it; the raw SNR stays in the snr columns.  --no-veto ranks by raw SNR.
 
-outputs in DIR: triggers.parquet (one row per clustered trigger per detector),
-candidates.parquet (coincident candidates with far_per_year / ifar_years, or
-the single detector's triggers), background.parquet (time-slide coincidences),
-bank.parquet, summary.json (loudest trigger per detector, candidates, FAR
-method, analysed segments) and plots/*.png.
+network statistic (several detectors): every trigger seeds an event; each other
+detector adds the same template's loudest refined peak within the light-travel
+time plus --tolerance, even when it is below that detector's threshold, and the
+re-weighted SNRs add in quadrature.  Time slides shift the detectors' data
+circularly; each slide's coincident time comes from segment arithmetic, so gaps
+and gates count exactly.  A FAR with no louder background event is an upper
+limit (flagged), never 0.
+
+outputs in DIR: triggers.parquet (one row per clustered trigger, with a stable
+trigger_id), candidates.parquet (zero-lag candidates with far_per_year /
+ifar_years; <DET>_trigger_id columns refer to triggers.parquet), background.parquet
+(time-slide events), slides.parquet (shift and coincident seconds of each
+slide), refused.parquet (templates a detector could not use), bank.parquet,
+summary.json (loudest trigger per detector, candidates resolved by trigger id,
+FAR method, analysed segments) and plots/*.png.
+
+what a candidate is not: a detection claim.  Its FAR comes from the data given
+(tens of seconds around an event hold few independent slides) and says nothing
+about data quality or instrumental artefacts; claims need a background over far
+more data, checks of the instruments and review.
 """
 
 
@@ -107,7 +122,14 @@ def register(subparsers) -> None:
                    help="time-slide step in s (default: coincidence window + longest "
                         "template + cluster window)")
     p.add_argument("--tolerance", type=float, default=0.01, metavar="S",
-                   help="timing tolerance added to the light-travel time (default 0.01 s)")
+                   help="timing allowance added to the light-travel time between detectors "
+                        "(default 0.01 s)")
+    p.add_argument("--cluster-window", type=float, metavar="S",
+                   help="one trigger per window across the bank, and one network event per "
+                        "window (default: the longest template, clipped to 0.05-1 s)")
+    p.add_argument("--gate-threshold", type=float, metavar="SIGMA",
+                   help="gate whitened excursions above this many noise standard deviations "
+                        "(default 100; inf turns gating off)")
     p.add_argument("--f-low", type=float, default=20.0, metavar="HZ",
                    help="lower band edge of whitening and filter, in Hz (default 20)")
     p.add_argument("--f-high", type=float, metavar="HZ",
@@ -131,80 +153,29 @@ def register(subparsers) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ringsearch.files import staged_directory, write_text
+    from pathlib import Path
+
     from ringsearch.search.bank import Bank
-    from ringsearch.search.pipeline import run_search
+    from ringsearch.search.engine import Search, SearchConfig
 
     mass = _range(args.mass, "--mass")
     spin = _range(args.spin, "--spin")
     bank = Bank.load(args.bank) if args.bank else None
-    from pathlib import Path
-
     out = Path(args.out)
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise InputError(f"output folder {out} already exists and is not empty.")
-    res = run_search(args.files, gps_start=args.gps_start, gps_end=args.gps_end, mass=mass,
-                     spin=spin, n_overtones=args.overtones, min_match=args.min_match, bank=bank,
-                     snr_threshold=args.snr_threshold, n_slides=args.slides,
-                     slide_step_s=args.slide_step, tolerance_s=args.tolerance,
-                     f_low=args.f_low, f_high=args.f_high, dq_level=args.dq_level,
-                     seed=args.seed, progress=sys.stderr.isatty(), veto=not args.no_veto,
-                     veto_bins=args.veto_bins, veto_domain=args.veto_domain,
-                     **pipeline_read_kwargs(args))
-    with staged_directory(out) as stage:
-        from ringsearch.files import atomic_path
-
-        for name, table in (("triggers", res.triggers), ("candidates", res.candidates),
-                            ("background", res.background)):
-            with atomic_path(stage / f"{name}.parquet") as tmp:
-                table.to_parquet(tmp, index=False)
-        res.bank.save(stage / "bank.parquet")
-        summary = dict(res.summary)
-        if not args.no_plots:
-            summary["plots"] = _plots(res, stage / "plots")
-        write_text(stage / "summary.json", json.dumps(summary, indent=2) + "\n")
+    config = SearchConfig(
+        mass=mass, spin=spin, n_overtones=args.overtones, min_match=args.min_match,
+        bank_seed=args.seed, snr_threshold=args.snr_threshold, veto=not args.no_veto,
+        veto_bins=args.veto_bins, veto_domain=args.veto_domain, tolerance_s=args.tolerance,
+        n_slides=args.slides, slide_step_s=args.slide_step, f_low=args.f_low,
+        f_high=args.f_high, gate_threshold=args.gate_threshold, dq_level=args.dq_level,
+        gps_start=args.gps_start, gps_end=args.gps_end, cluster_window_s=args.cluster_window)
+    search = Search(config, bank=bank)
+    res = search.run(args.files, progress=sys.stderr.isatty(), **pipeline_read_kwargs(args))
+    res.write(out, plots=not args.no_plots)
     _print(res)
     return 0
-
-
-def _plots(res, folder) -> list[str]:
-    from ringsearch.search import plots
-
-    folder.mkdir(parents=True, exist_ok=True)
-    made = []
-    best = res.summary.get("loudest_candidate")
-    loud = {d: v for d, v in res.summary["loudest"].items() if v}
-    if best is not None:
-        around = float(best["gps"])
-        tid = (best.get("template") or {}).get("template_id", best.get("template_id"))
-        if tid is None:
-            tid = next(iter(loud.values()))["template_id"]
-        rows = {}
-        for d in res.conditioned:
-            t = res.triggers[res.triggers.detector == d]
-            if len(t):
-                near = t.iloc[(t.gps - around).abs().argsort()[:1]]
-                rows[d] = near.iloc[0]
-        made.append(plots.plot_snr_around(res.conditioned, res.bank, int(tid), around,
-                                          folder / "snr_loudest.png"))
-        if rows:
-            made.append(plots.plot_whitened_fit(res.conditioned, rows,
-                                                folder / "whitened_fit.png"))
-        try:
-            from ringsearch.data.plots import plot_qtransform
-
-            for d, c in res.conditioned.items():
-                made.append(plot_qtransform(c, folder / f"qtransform_{d}.png", around=around,
-                                            window=0.5))
-        except ImportError:  # pragma: no cover - data layer always present in releases
-            pass
-        made.append(plots.plot_bank(res.bank, folder / "bank.png", mark=int(tid)))
-    else:
-        made.append(plots.plot_bank(res.bank, folder / "bank.png"))
-    sig = res.summary["significance"]
-    made.append(plots.plot_far(res.candidates, res.background,
-                               float(sig.get("background_time_s") or 0.0), folder / "far.png"))
-    return [str(p.relative_to(folder.parent)) for p in made]
 
 
 def _print(res) -> None:
@@ -219,8 +190,12 @@ def _print(res) -> None:
         else:
             print(f"{det}: no trigger above threshold")
     print(f"significance: {s['significance']['method']}")
+    if not s["candidates"]:
+        print(s.get("note", "no candidate"))
     for c in s["candidates"][:5]:
         far = c.get("far_per_year")
         far_s = "n/a" if far is None else (("<= " if c.get("far_is_upper_limit") else "")
                                            + f"{far:.3g}/yr")
-        print(f"candidate gps {c['gps']:.4f} network snr {c['network_snr']:.2f} FAR {far_s}")
+        edge = "  (template on the box edge)" if c.get("on_box_edge") else ""
+        print(f"candidate gps {c['gps']:.4f} network snr {c['network_snr']:.2f} "
+              f"FAR {far_s}{edge}")

@@ -1,19 +1,18 @@
-"""The ringdown search: template bank, matched filter, triggers, coincidence, significance.
+"""The ringdown search: template bank, matched filter, triggers, network statistic, significance.
 
 Public API (stable; see DEVELOPERS.md):
 
+* :class:`~ringsearch.search.engine.Search`, :class:`~ringsearch.search.engine.SearchConfig`
+  and :class:`~ringsearch.search.engine.SearchResult`: the one search that
+  ``ringsearch search`` and campaigns run
 * :class:`~ringsearch.search.bank.Bank` (``from_box``, ``from_points``,
-  ``save``/``load``, ``coverage``, ``fitting_factor``)
-* :func:`~ringsearch.search.filter.matched_filter`,
-  :func:`~ringsearch.search.filter.snr_series`,
-  :func:`~ringsearch.search.filter.projection_snr`
-* :func:`~ringsearch.search.coincidence.coincident_candidates`,
-  :func:`~ringsearch.search.significance.time_slide_background`,
-  :func:`~ringsearch.search.significance.single_detector_far`
+  ``save``/``load``, ``coverage``, ``fitting_factor``, ``on_box_edge``)
+* :class:`~ringsearch.search.probe.Probe`: any template evaluated at any start
+  time with the search's own numbers (refined start, SNR, amplitudes, veto)
+* :func:`~ringsearch.search.correlate.snr_series`,
+  :func:`~ringsearch.search.correlate.projection_snr` (one template)
 * :func:`~ringsearch.search.veto.chisq_at`,
-  :func:`~ringsearch.search.veto.candidate_chisq`,
   :func:`~ringsearch.search.veto.reweighted_snr` (signal-consistency veto)
-* :func:`~ringsearch.search.pipeline.run_search` -> ``SearchResult``
 """
 
 from __future__ import annotations
@@ -22,19 +21,16 @@ from importlib import import_module
 from typing import Any
 
 _API = {
+    "Search": "ringsearch.search.engine",
+    "SearchConfig": "ringsearch.search.engine",
+    "SearchResult": "ringsearch.search.engine",
     "Bank": "ringsearch.search.bank",
-    "matched_filter": "ringsearch.search.filter",
-    "snr_series": "ringsearch.search.filter",
-    "projection_snr": "ringsearch.search.filter",
+    "Probe": "ringsearch.search.probe",
+    "snr_series": "ringsearch.search.correlate",
+    "projection_snr": "ringsearch.search.correlate",
     "cluster_triggers": "ringsearch.search.triggers",
-    "coincident_candidates": "ringsearch.search.coincidence",
-    "time_slide_background": "ringsearch.search.significance",
-    "single_detector_far": "ringsearch.search.significance",
     "chisq_at": "ringsearch.search.veto",
-    "candidate_chisq": "ringsearch.search.veto",
     "reweighted_snr": "ringsearch.search.veto",
-    "run_search": "ringsearch.search.pipeline",
-    "SearchResult": "ringsearch.search.pipeline",
 }
 
 __all__ = list(_API)

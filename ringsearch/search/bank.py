@@ -562,6 +562,37 @@ class Bank:
             raise InputError(f"bank file {path} lacks columns {missing}.")
         return cls(table, n, meta)
 
+    def on_box_edge(self) -> np.ndarray:
+        """True for templates whose neighbourhood reaches the edge of the bank's box.
+
+        A template is an edge template when a point on the box boundary next to
+        it (same spin at the lowest or highest mass, or same mass at the lowest
+        or highest spin) has a (2,2,0) white-noise match of at least the bank's
+        minimal match with it: a signal outside the box would then be fitted by
+        this template, so its mass and spin are a boundary value, not an
+        estimate.  Banks without a recorded box have no edge templates.
+
+        Examples
+        --------
+        >>> bank = Bank.from_box((50, 80), (0.5, 0.8), min_match=0.9)  # doctest: +SKIP
+        >>> bank.on_box_edge().mean()  # doctest: +SKIP
+        0.4
+        """
+        if "mass_range_msun" not in self.meta or "spin_range" not in self.meta:
+            return np.zeros(len(self), bool)
+        lo_m, hi_m = (float(x) for x in self.meta["mass_range_msun"])
+        lo_s, hi_s = (float(x) for x in self.meta["spin_range"])
+        mm = float(self.meta.get("min_match", 0.97))
+        m = self.table.mass_msun.to_numpy(float)
+        s = self.table.spin.to_numpy(float)
+        f0, t0 = self.f_hz[:, 0], self.tau_s[:, 0]
+        edge = np.zeros(len(self), bool)
+        for bm, bs in ((np.full_like(m, lo_m), s), (np.full_like(m, hi_m), s),
+                       (m, np.full_like(s, lo_s)), (m, np.full_like(s, hi_s))):
+            fb, tb = qnm_f_tau(bm, bs, 0)
+            edge |= _white_match0(f0, t0, fb, tb) >= mm
+        return edge
+
     def summary(self) -> dict:
         """Short description (count, box, N, minimal match) for reports."""
         keys = ("mass_range_msun", "spin_range", "min_match", "f_low_hz", "f_high_hz",

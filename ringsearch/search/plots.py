@@ -15,7 +15,8 @@ import pandas as pd
 import scipy.fft
 
 from ringsearch.search.bank import Bank
-from ringsearch.search.filter import basis_waveforms, snr_series
+from ringsearch.search.correlate import snr_series
+from ringsearch.search.templates import basis_waveforms
 from ringsearch.style import PALETTE, detector_colour, figure, save_figure
 
 
@@ -141,6 +142,10 @@ def plot_far(candidates: pd.DataFrame, background: pd.DataFrame, background_time
     ax.set_yscale("log")
     ax.set_xlabel("network ranking statistic (SNR, dimensionless)")
     ax.set_ylabel("false-alarm rate (per year)")
-    ax.legend(fontsize=8)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=8)
+    else:
+        ax.text(0.5, 0.5, "no background event and no candidate", transform=ax.transAxes,
+                ha="center", va="center")
     save_figure(fig, path)
     return Path(path)

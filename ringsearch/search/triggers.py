@@ -1,38 +1,48 @@
-"""Triggers: clustering of per-template SNR maxima into one row per signal, and the table.
+"""Triggers of one detector: refined peaks above threshold, clustered into one row per signal.
 
 Trigger table columns (one row per clustered trigger):
 
-``gps`` (template start time t0, GPS s), ``detector``, ``snr`` (projection SNR),
-``template_id``, ``mass_msun``, ``spin``, ``n_overtones``, and for each mode
-n = 0..N ``f22{n}_hz``, ``tau22{n}_s``, ``amp22{n}_re``, ``amp22{n}_im`` (the
-maximum-likelihood complex amplitude ``A_n`` at t0, strain units: the fitted
-signal is ``Re[A_n e^{-i 2 pi f_n (t-t0)}] e^{-(t-t0)/tau_n}``), ``amp22{n}_abs``,
-``cond_gram`` (condition number of the template's normalised Gram matrix), and
-the signal-consistency veto (:mod:`ringsearch.search.veto`): ``chisq`` (band
-chi-squared; NaN when the veto is off), ``chisq_dof`` (its degrees of freedom;
-0 when off) and ``snr_reweighted`` (the ranking SNR; equal to ``snr`` when off).
+``trigger_id`` (unique within a search, stable: candidates and time-slide
+events refer to triggers by it), ``gps`` (refined template start time t0,
+GPS s), ``detector``, ``snr`` (projection SNR at t0), ``snr_reweighted``
+(the ranking SNR after the signal-consistency veto; equal to ``snr`` when the
+veto is off), ``chisq`` (NaN when off), ``chisq_dof`` (0 when off),
+``template_id``, ``template_index`` (row of the bank), ``mass_msun``,
+``spin``, ``n_overtones``, ``on_box_edge`` (the template touches the edge of
+the bank's box: mass and spin are a boundary value, not an estimate),
+``cond_gram`` (condition number of the template's normalised Gram matrix),
+and for each mode n = 0..N ``f22{n}_hz``, ``tau22{n}_s``, ``amp22{n}_re``,
+``amp22{n}_im`` (the maximum-likelihood complex amplitude ``A_n`` at t0, strain
+units: the fitted signal is ``Re[A_n e^{-i 2 pi f_n (t-t0)}] e^{-(t-t0)/tau_n}``)
+and ``amp22{n}_abs``.
 """
 
 from __future__ import annotations
 
 import bisect
+from collections.abc import Sequence
 
 import numpy as np
 import pandas as pd
 
 from ringsearch.search.bank import Bank
+from ringsearch.search.probe import Peak, Probe
 
-#: Column order of an empty trigger table (per-mode columns are added for N).
-BASE_COLUMNS = ["gps", "detector", "snr", "template_id", "mass_msun", "spin",
-                "n_overtones", "cond_gram"]
+#: Peaks found on the sample grid are refined when their on-grid SNR is at least
+#: this fraction of the threshold: between samples the SNR of a ringdown peak
+#: rises by at most ~3 % at half a sample (the rms bandwidth of a whitened
+#: damped sinusoid of a few ms with its abrupt start, up to 0.8 x Nyquist), so
+#: no refined peak above threshold is missed.
+GRID_MARGIN: float = 0.95
 
 
-def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr") -> pd.DataFrame:
+def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr",
+                     time_column: str = "gps") -> pd.DataFrame:
     """Keep the loudest candidate in every time window, across all templates.
 
-    Greedy: candidates are taken loudest first (by ``column``: ``"snr"``, or
-    ``"snr_reweighted"`` with the veto on) and kept unless a kept one lies
-    within ``window_s`` of it, so one signal makes one trigger.
+    Greedy: candidates are taken loudest first (by ``column``) and kept unless
+    a kept one lies within ``window_s`` of it (in ``time_column``), so one
+    signal makes one trigger.  The result is sorted by time.
 
     Examples
     --------
@@ -43,7 +53,7 @@ def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr") -
     if len(cand) == 0:
         return cand.copy()
     order = np.argsort(-cand[column].to_numpy(), kind="stable")
-    t = cand["gps"].to_numpy()[order]
+    t = cand[time_column].to_numpy()[order]
     kept_t: list[float] = []
     kept: list[int] = []
     # kept times stay sorted so each check is a bisection
@@ -54,54 +64,82 @@ def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr") -
             continue
         kept_t.insert(j, ti)
         kept.append(i)
-    return cand.iloc[kept].sort_values("gps").reset_index(drop=True)
+    return cand.iloc[kept].sort_values(time_column, kind="stable").reset_index(drop=True)
 
 
-def trigger_table(kept: pd.DataFrame, bank: Bank, templates: pd.DataFrame,
-                  detector: str) -> pd.DataFrame:
-    """Trigger rows with the template's parameters and per-mode complex amplitudes.
+def peak_table(peaks: Sequence[Peak], bank: Bank, detector: str,
+               cond_gram: np.ndarray | None = None,
+               edge: np.ndarray | None = None) -> pd.DataFrame:
+    """Rows for refined peaks: time, SNRs, veto, template parameters and mode amplitudes.
 
     Examples
     --------
-    >>> trigger_table(kept, bank, templates, "H1")  # doctest: +SKIP
+    >>> peak_table([probe.refine(3, 65536)], bank, "H1")  # doctest: +SKIP
     """
     k = bank.n_modes
-    ti = kept["template_index"].to_numpy(int) if len(kept) else np.empty(0, int)
+    ti = np.array([p.template_index for p in peaks], int)
     row = bank.table.iloc[ti]
+    amp = (np.array([p.amplitudes for p in peaks], float) if peaks
+           else np.empty((0, 2 * k)))
     out = pd.DataFrame({
-        "gps": kept["gps"].to_numpy(float) if len(kept) else np.empty(0),
+        "gps": np.array([p.gps for p in peaks], float),
         "detector": detector,
-        "snr": kept["snr"].to_numpy(float) if len(kept) else np.empty(0),
+        "snr": np.array([p.snr for p in peaks], float),
+        "snr_reweighted": np.array([p.snr_reweighted for p in peaks], float),
+        "chisq": np.array([p.chisq for p in peaks], float),
+        "chisq_dof": np.array([p.chisq_dof for p in peaks], int),
         "template_id": row["template_id"].to_numpy(),
+        "template_index": ti,
         "mass_msun": row["mass_msun"].to_numpy(float),
         "spin": row["spin"].to_numpy(float),
         "n_overtones": np.full(len(ti), bank.n_overtones, dtype=int),
-        "cond_gram": templates["cond_gram"].to_numpy(float)[ti],
+        "on_box_edge": (np.asarray(edge, bool)[ti] if edge is not None
+                        else np.zeros(len(ti), bool)),
+        "cond_gram": (np.asarray(cond_gram, float)[ti] if cond_gram is not None
+                      else np.full(len(ti), np.nan)),
+        "sample": np.array([p.sample for p in peaks], np.int64),
+        "offset": np.array([p.offset for p in peaks], float),
     })
     for n in range(k):
         out[f"f22{n}_hz"] = row[f"f22{n}_hz"].to_numpy(float)
         out[f"tau22{n}_s"] = row[f"tau22{n}_s"].to_numpy(float)
-        re = kept[f"a{2 * n}"].to_numpy(float) if len(kept) else np.empty(0)
-        im = kept[f"a{2 * n + 1}"].to_numpy(float) if len(kept) else np.empty(0)
-        out[f"amp22{n}_re"] = re
-        out[f"amp22{n}_im"] = im
-        out[f"amp22{n}_abs"] = np.hypot(re, im)
-    n_rows = len(ti)
-    has = len(kept) and "chisq" in kept.columns
-    out["chisq"] = kept["chisq"].to_numpy(float) if has else np.full(n_rows, np.nan)
-    out["chisq_dof"] = kept["chisq_dof"].to_numpy(int) if has else np.zeros(n_rows, int)
-    out["snr_reweighted"] = (kept["snr_reweighted"].to_numpy(float) if has
-                             else out["snr"].to_numpy(float))
+        out[f"amp22{n}_re"] = amp[:, 2 * n]
+        out[f"amp22{n}_im"] = amp[:, 2 * n + 1]
+        out[f"amp22{n}_abs"] = np.hypot(amp[:, 2 * n], amp[:, 2 * n + 1])
     out["detector"] = out["detector"].astype(str)
     return out
 
 
-def loudest(triggers: pd.DataFrame, column: str = "snr") -> dict | None:
+def detector_triggers(probe: Probe, peaks: pd.DataFrame, snr_threshold: float,
+                      cluster_window_s: float, cond_gram: np.ndarray | None = None,
+                      edge: np.ndarray | None = None) -> pd.DataFrame:
+    """Refine on-grid peaks, keep those above threshold, cluster them on the ranking SNR.
+
+    ``peaks`` holds per-template on-grid maxima (``template_index``, ``sample``)
+    from :func:`ringsearch.search.correlate.filter_peaks`, found with the
+    threshold times :data:`GRID_MARGIN`.  Each is refined by ``probe`` (start
+    time between samples, SNR, amplitudes, chi-squared); peaks whose refined
+    SNR reaches ``snr_threshold`` are clustered on ``snr_reweighted`` within
+    ``cluster_window_s``.  Returns the trigger table without ``trigger_id``
+    (ids are given across detectors by the engine), sorted by time.
+
+    Examples
+    --------
+    >>> trig = detector_triggers(probe, peaks, 5.0, 0.05)  # doctest: +SKIP
+    """
+    refined = [probe.refine(int(i), int(s)) for i, s in
+               zip(peaks["template_index"], peaks["sample"], strict=True)]
+    table = peak_table(refined, probe.bank, probe.detector, cond_gram, edge)
+    table = table[table["snr"] >= float(snr_threshold)].reset_index(drop=True)
+    return cluster_triggers(table, cluster_window_s, column="snr_reweighted")
+
+
+def loudest(triggers: pd.DataFrame, column: str = "snr_reweighted") -> dict | None:
     """The loudest trigger (largest ``column``) as a plain dict with the summary keys of DESIGN.md.
 
     Keys: ``gps, snr, mass, spin, f_hz, tau_s, n_overtones`` (f/tau of (2,2,0))
-    plus ``template_id``, ``detector`` and, when present, ``snr_reweighted``,
-    ``chisq``, ``chisq_dof``.
+    plus ``trigger_id``, ``template_id``, ``detector``, ``snr_reweighted``,
+    ``chisq``, ``chisq_dof`` and ``on_box_edge``.
 
     Examples
     --------
@@ -113,8 +151,9 @@ def loudest(triggers: pd.DataFrame, column: str = "snr") -> dict | None:
     out = {"gps": float(r.gps), "snr": float(r.snr), "mass": float(r.mass_msun),
            "spin": float(r.spin), "f_hz": float(r.f220_hz), "tau_s": float(r.tau220_s),
            "n_overtones": int(r.n_overtones), "template_id": int(r.template_id),
-           "detector": str(r.detector)}
-    if "snr_reweighted" in triggers.columns:
-        out.update(snr_reweighted=float(r.snr_reweighted), chisq=float(r.chisq),
-                   chisq_dof=int(r.chisq_dof))
+           "detector": str(r.detector), "snr_reweighted": float(r.snr_reweighted),
+           "chisq": float(r.chisq), "chisq_dof": int(r.chisq_dof),
+           "on_box_edge": bool(r.on_box_edge)}
+    if "trigger_id" in triggers.columns:
+        out["trigger_id"] = int(r.trigger_id)
     return out

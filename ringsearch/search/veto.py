@@ -31,13 +31,13 @@ projection coordinates, ``rho^2 = |y|^2``) and ``M^b_jk = <e_j^b, e_k^b>``
   are nearly parallel) are dropped from the inverse *and* from the dof, which
   each trigger reports as ``chisq_dof``.
 
-The inner products are dot products of the whitened data with the pieces on an
-FFT grid holding the template and the whitening filter, as in
-:func:`ringsearch.search.filter.projection_snr`; by Parseval on that grid the
+The inner products are dot products of the whitened data with the pieces on the
+template's own short FFT grid (:func:`ringsearch.search.templates.local_template`,
+holding the template and the whitening filter); by Parseval on that grid the
 pieces sum exactly to the template, so the cancellation holds for the computed
-numbers.  The statistic is evaluated only at given (template, sample) pairs --
-the per-template maxima above threshold -- never for the whole series: one
-piece basis per template with candidates, then one small matrix product.
+numbers.  The statistic is evaluated only at given start times -- the peaks the
+search refines -- never for the whole series: one piece basis per template,
+then one small matrix product per peak.
 
 The re-weighted SNR that ranks triggers is the form used by the LIGO S6
 compact-binary searches (Babak et al. 2013, PRD 87, 024033)::
@@ -45,7 +45,21 @@ compact-binary searches (Babak et al. 2013, PRD 87, 024033)::
     rho_hat = rho                                  if chi2_r <= 1
     rho_hat = rho / [(1 + chi2_r^3) / 2]^(1/6)     if chi2_r > 1
 
-with ``chi2_r = chi^2 / dof``.
+with ``chi2_r = chi^2 / (dof + m rho^2)``.  The term ``m rho^2`` is the bank's
+mismatch allowance (the chi-squared threshold ``p + delta^2 rho^2`` of template
+vetoes, # common practice): a signal s whose best template T has match at
+least MM (the bank's minimal match, worst case over mode amplitudes) keeps
+``|s - P_T s|^2 <= (1 - MM^2) |s|^2`` outside the template's span, the
+chi-squared of a deterministic residual is at most its squared norm (the
+statistic is the norm of a projection), and ``rho^2 ~ |P_T s|^2 >= MM^2
+|s|^2``; so a signal drawn from the bank's box has ``E[chi^2] <= dof + m rho^2``
+with ``m = 1/MM^2 - 1`` (:func:`mismatch_allowance`), and loud signals are not
+down-weighted for the bank's discreteness.
+
+The statistic is evaluated at the refined (sub-sample) start time of a peak:
+:mod:`ringsearch.search.probe` shifts the data by the fractional delay with
+a band-limited interpolator, so a signal starting between two samples is as
+well matched as one starting on a sample.
 
 Why time slices by default: a damped sinusoid is one spectral line of width
 ~1/(pi tau); what distinguishes it from the merger that precedes a ringdown is
@@ -56,7 +70,6 @@ offered; the tests show each catching chirp-like bursts (tests/test_search_veto.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -64,7 +77,7 @@ import numpy as np
 import scipy.fft
 
 from ringsearch.errors import InputError
-from ringsearch.search.bank import DECAY_TIMES
+from ringsearch.search.templates import LocalTemplate, local_grid, local_template
 
 #: Default number of frequency bands p.  Allen (2005) and the LIGO S5/S6 searches
 #: use p = 16 for long chirps; a damped sinusoid of quality factor a few spans a
@@ -80,31 +93,22 @@ RANK_TOL: float = 1e-3
 DOMAINS: tuple[str, ...] = ("time", "frequency")
 DEFAULT_DOMAIN: str = "time"
 
-#: Energy fraction of the whitening filter left outside the veto's grid: amplitude
-#: errors of sqrt(1e-5) ~ 0.3 %, far below the statistic's noise, on a grid ~3x
-#: shorter than the filter's 1e-6 (which the SNR itself uses).
-PAD_TOL: float = 1e-5
 
 
 @dataclass
-class BandBasis:
-    """The veto of one template on an FFT grid of ``n`` samples.
+class VetoBasis:
+    """The chi-squared of one template on its local grid (see :class:`LocalTemplate`).
 
-    ``basis``: (2K, n) whitened orthonormal basis ``e_j`` rolled so the template
-    starts at sample ``pad`` (``y = basis @ segment``); ``pieces``: (p * 2K, n)
-    its parts ``e_j^b`` (row ``b * 2K + j``); ``weights``: (dof, n) rows whose
-    dot products with a data segment are the whitened residuals, so
-    ``chi^2 = |weights @ segment|^2``; ``dof``: degrees of freedom; ``edges``:
-    band edges in Hz (``domain="frequency"``) or slice edges in s after the
-    grid start (``"time"``).
+    ``weights``: (dof, n) rows whose dot products with a data segment (the
+    one whose projection coordinates are ``local.basis @ segment``) are the
+    whitened residuals, so ``chi^2 = |weights @ segment|^2``; ``dof``: degrees
+    of freedom; ``edges``: band edges in Hz (``domain="frequency"``) or slice
+    edges in s after the grid start (``"time"``).
     """
 
-    basis: np.ndarray
-    pieces: np.ndarray
     weights: np.ndarray
     dof: int
     edges: np.ndarray
-    pad: int
 
 
 def check_bins(bins: Any) -> int:
@@ -145,47 +149,42 @@ def _equal_shares(power: np.ndarray, p: int) -> np.ndarray:
                            [power.size]])
 
 
-def band_basis(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray, n_fft: int,
-               sample_rate: float, pad: int, bins: int = DEFAULT_BINS,
-               domain: str = DEFAULT_DOMAIN) -> BandBasis:
-    """Split one template's whitened orthonormal basis into ``bins`` equal-share pieces.
+def veto_basis(local: LocalTemplate, response: np.ndarray, sample_rate: float,
+               bins: int = DEFAULT_BINS, domain: str = DEFAULT_DOMAIN) -> VetoBasis:
+    """Split a local template's orthonormal basis into ``bins`` equal-share pieces.
 
-    ``response`` is the data's filter response H on the rfft grid of ``n_fft``;
-    ``pad`` the whitening filter's half-length (the template starts at sample
-    ``pad`` of the grid); ``domain`` chooses time slices or frequency bands.
+    ``local`` must still carry its ``spectrum``; ``response`` is the data's
+    filter response H on the rfft grid of ``local.n``; ``domain`` chooses time
+    slices or frequency bands.
 
     Examples
     --------
     >>> H = np.ones(4096 // 2 + 1)
-    >>> bb = band_basis(np.array([250.0]), np.array([0.004]), H, 4096, 4096.0, 100, 4)
-    >>> bb.dof, bb.pieces.shape
-    (6, (8, 4096))
+    >>> lt = local_template([250.0], [0.004], H, 4096, 4096.0, 100)
+    >>> vb = veto_basis(lt, H, 4096.0, 4)
+    >>> vb.dof, vb.weights.shape[1]
+    (6, 4096)
     """
-    from ringsearch.search.filter import prepare_templates
-
     p = check_bins(bins)
     domain = check_domain(domain)
-    f = np.atleast_2d(np.asarray(f_hz, float))
-    tau = np.atleast_2d(np.asarray(tau_s, float))
-    prep = prepare_templates(f, tau, response, n_fft, sample_rate)
-    if not prep.ok[0]:
-        raise InputError(f"template refused: {prep.reason[0]}.")
-    # orthonormal whitened spectra E = C^{-1} V (prep.spectra holds conj(V))
-    e_spec = prep.cinv[0] @ np.conj(prep.spectra[0])  # (2K, n_freq)
+    if local.spectrum is None:
+        raise ValueError("the local template no longer carries its spectrum")
+    e_spec = local.spectrum
+    n, pad = local.n, local.pad
     k2 = e_spec.shape[0]
-    wts = np.full(e_spec.shape[1], 2.0)  # rfft Parseval weights
-    wts[0] = 1.0
-    if n_fft % 2 == 0:
-        wts[-1] = 1.0
-    basis = np.roll(scipy.fft.irfft(e_spec, n_fft, axis=-1), pad, axis=-1)
-    pieces = np.zeros((p, k2, n_fft))
+    basis = local.basis
+    pieces = np.zeros((p, k2, n))
     if domain == "frequency":
+        wts = np.full(e_spec.shape[1], 2.0)  # rfft Parseval weights
+        wts[0] = 1.0
+        if n % 2 == 0:
+            wts[-1] = 1.0
         cut = _equal_shares(wts * np.sum(np.abs(e_spec) ** 2, axis=0), p)
         for b in range(p):
             spec = np.zeros_like(e_spec)
             spec[:, cut[b]:cut[b + 1]] = e_spec[:, cut[b]:cut[b + 1]]
-            pieces[b] = np.roll(scipy.fft.irfft(spec, n_fft, axis=-1), pad, axis=-1)
-        freqs = scipy.fft.rfftfreq(n_fft, 1 / sample_rate)
+            pieces[b] = np.roll(scipy.fft.irfft(spec, n, axis=-1), pad, axis=-1)
+        freqs = scipy.fft.rfftfreq(n, 1 / sample_rate)
         edges = np.append(freqs[np.minimum(cut[:-1], freqs.size - 1)], freqs[-1])
         # in-band pieces on disjoint bands: the noise covariance is block diagonal
         cov = np.zeros((p * k2, p * k2))
@@ -198,14 +197,11 @@ def band_basis(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray, n_fft:
         edges = cut / sample_rate
         # the whitened noise is white only inside the band (where H > 0): time slices
         # leak out of it, so take their covariance through the band projector
-        spec = scipy.fft.rfft(pieces.reshape(p * k2, n_fft), axis=-1) * (response > 0)
-        sf = spec.view(np.float64)
-        cov = 2.0 * (sf @ sf.T)
-        cov -= np.outer(spec[:, 0], spec[:, 0].conj()).real
-        if n_fft % 2 == 0:
-            cov -= np.outer(spec[:, -1], spec[:, -1].conj()).real
-        cov /= n_fft
-    flat = pieces.reshape(p * k2, n_fft)
+        from ringsearch.search.templates import parseval_gram
+
+        spec = scipy.fft.rfft(pieces.reshape(p * k2, n), axis=-1) * (response > 0)
+        cov = parseval_gram(spec, n)
+    flat = pieces.reshape(p * k2, n)
     # band Gram matrices M^b = <e^b, e^b>; a signal c in the span adds M^b c to y^b
     gram = np.einsum("bjt,bkt->bjk", pieces, pieces)
     # residuals r = y^b - M^b y = L Y with Y the stacked band coordinates
@@ -214,62 +210,77 @@ def band_basis(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray, n_fft:
     ev, vec = np.linalg.eigh(rcov)
     keep = ev > RANK_TOL * ev.max()
     white = (vec[:, keep] / np.sqrt(ev[keep])).T  # (dof, p*2K)
-    return BandBasis(basis, flat, white @ lin @ flat, int(keep.sum()), edges, pad)
+    return VetoBasis(np.ascontiguousarray(white @ lin @ flat), int(keep.sum()), edges)
 
 
-def reweighted_snr(snr: Any, chisq: Any, dof: Any) -> np.ndarray:
-    """Re-weighted SNR ``rho / [(1 + chi2_r^3)/2]^(1/6)`` for ``chi2_r = chisq/dof > 1``.
+def mismatch_allowance(min_match: float) -> float:
+    """The chi-squared allowance m = 1/MM^2 - 1 for a bank of minimal match MM.
 
-    The form of Babak et al. 2013 (PRD 87, 024033); unchanged for ``chi2_r <= 1``.
+    A signal inside the bank's box leaves at most ``m rho^2`` of chi-squared
+    beyond its noise expectation (module docstring).
+
+    Examples
+    --------
+    >>> round(mismatch_allowance(0.97), 4)
+    0.0628
+    """
+    mm = float(min_match)
+    if not 0.0 < mm <= 1.0:
+        raise InputError(f"minimal match must lie in (0, 1], got {min_match!r}.")
+    return 1.0 / (mm * mm) - 1.0
+
+
+def reweighted_snr(snr: Any, chisq: Any, dof: Any, mismatch: float = 0.0) -> np.ndarray:
+    """Re-weighted SNR ``rho / [(1 + chi2_r^3)/2]^(1/6)`` for ``chi2_r > 1``.
+
+    ``chi2_r = chisq / (dof + mismatch * snr^2)``: the form of Babak et al. 2013
+    (PRD 87, 024033) with the bank's mismatch allowance (``mismatch`` from
+    :func:`mismatch_allowance`; 0 gives the plain reduced chi-squared).
+    Unchanged for ``chi2_r <= 1``.
 
     Examples
     --------
     >>> reweighted_snr([10.0, 10.0], [8.0, 80.0], [8, 8]).round(3).tolist()
     [10.0, 3.549]
+    >>> reweighted_snr([50.0], [150.0], [14], mismatch=0.0628).round(2).tolist()
+    [50.0]
     """
     snr = np.asarray(snr, float)
-    r = np.asarray(chisq, float) / np.maximum(np.asarray(dof, float), 1.0)
+    expect = np.maximum(np.asarray(dof, float), 1.0) + float(mismatch) * snr * snr
+    r = np.asarray(chisq, float) / expect
     fac = np.where(r > 1.0, ((1.0 + r ** 3) / 2.0) ** (1.0 / 6.0), 1.0)
     return snr / fac
 
 
-def grid_length(tau_max: float, sample_rate: float, pad: int) -> int:
-    """FFT length holding a template of decay ``tau_max`` plus the whitening filter.
-
-    Examples
-    --------
-    >>> grid_length(0.004, 4096.0, 100) >= 8 * 0.004 * 4096 + 200
-    True
-    """
-    tail = int(math.ceil(DECAY_TIMES * tau_max * sample_rate))
-    return scipy.fft.next_fast_len(tail + 2 * pad + 2, real=True)
-
-
 def chisq_at(cond: Any, f_hz: Any, tau_s: Any, samples: Any, bins: int = DEFAULT_BINS,
              domain: str = DEFAULT_DOMAIN) -> tuple[np.ndarray, np.ndarray, int]:
-    """Band chi-squared of one template starting at whitened-data ``samples``.
+    """Band chi-squared of one template starting at whitened-data ``samples`` (on the grid).
 
     Returns ``(chisq, snr, dof)``; ``snr`` is the projection SNR at the same
-    samples (the band coordinates sum to it), useful as a check.
+    samples (the band coordinates sum to it), useful as a check.  The search
+    evaluates the statistic at refined, sub-sample start times through
+    :class:`ringsearch.search.probe.Probe`; this is the plain on-grid version.
 
     Examples
     --------
     >>> chi2, snr, dof = chisq_at(cond, [250.0], [0.004], [8192, 16384])  # doctest: +SKIP
     """
-    from ringsearch.search.filter import _data_arrays, _response, filter_length
+    from ringsearch.search.correlate import data_arrays, filter_length, response_on
 
-    vals, fs, _ = _data_arrays(cond)
+    vals, fs, _ = data_arrays(cond)
     f = np.atleast_1d(np.asarray(f_hz, float))
     tau = np.atleast_1d(np.asarray(tau_s, float))
     if f.shape != tau.shape:
         raise InputError("f_hz and tau_s of a template must have the same length.")
-    pad = filter_length(cond, tol=PAD_TOL)
-    n = grid_length(float(tau.max()), fs, pad)
-    bb = band_basis(f, tau, _response(cond, n, fs), n, fs, pad, bins, domain)
+    pad = filter_length(cond)
+    n = local_grid(tau, fs, pad)
+    resp = response_on(cond, n, fs)
+    lt = local_template(f, tau, resp, n, fs, pad)
+    vb = veto_basis(lt, resp, fs, bins, domain)
     segs = data_segments(vals, np.asarray(samples, np.int64), pad, n)
-    x = segs @ bb.weights.T
-    y = segs @ bb.basis.T
-    return np.sum(x * x, axis=1), np.sqrt(np.sum(y * y, axis=1)), bb.dof
+    x = segs @ vb.weights.T
+    y = segs @ lt.basis.T
+    return np.sum(x * x, axis=1), np.sqrt(np.sum(y * y, axis=1)), vb.dof
 
 
 def data_segments(vals: np.ndarray, samples: np.ndarray, pad: int, n: int) -> np.ndarray:
@@ -280,46 +291,11 @@ def data_segments(vals: np.ndarray, samples: np.ndarray, pad: int, n: int) -> np
     >>> data_segments(np.arange(5.0), np.array([0, 4]), 1, 3).tolist()
     [[0.0, 0.0, 1.0], [3.0, 4.0, 0.0]]
     """
-    padded = np.concatenate([np.zeros(n), vals, np.zeros(n)])
-    win = np.lib.stride_tricks.sliding_window_view(padded, n)
-    return win[samples - pad + n]
-
-
-def candidate_chisq(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, template_index: np.ndarray,
-                    samples: np.ndarray, bins: int = DEFAULT_BINS,
-                    domain: str = DEFAULT_DOMAIN) -> tuple[np.ndarray, np.ndarray]:
-    """Chi-squared and dof at each (template, start sample) candidate of a bank.
-
-    ``f_hz``/``tau_s``: (n_templates, K) of the bank; ``template_index`` and
-    ``samples``: one entry per candidate.  One band basis is built per template
-    that has candidates (the grid length follows the bank's longest template).
-
-    Examples
-    --------
-    >>> chi2, dof = candidate_chisq(cond, bank.f_hz, bank.tau_s, ti, samp)  # doctest: +SKIP
-    """
-    from ringsearch.search.filter import _data_arrays, _response, filter_length
-
-    vals, fs, _ = _data_arrays(cond)
-    f = np.atleast_2d(np.asarray(f_hz, float))
-    tau = np.atleast_2d(np.asarray(tau_s, float))
-    ti = np.asarray(template_index, int)
-    samp = np.asarray(samples, np.int64)
-    chi2 = np.full(ti.size, np.nan)
-    dof = np.zeros(ti.size, int)
-    if ti.size == 0:
-        return chi2, dof
-    pad = filter_length(cond, tol=PAD_TOL)
-    n = grid_length(float(tau[np.unique(ti)].max()), fs, pad)
-    resp = _response(cond, n, fs)
-    padded = np.concatenate([np.zeros(n), vals, np.zeros(n)])
-    win = np.lib.stride_tricks.sliding_window_view(padded, n)
-    order = np.argsort(ti, kind="stable")
-    bounds = np.flatnonzero(np.diff(ti[order])) + 1
-    for rows in np.split(order, bounds):
-        i = ti[rows[0]]
-        bb = band_basis(f[i], tau[i], resp, n, fs, pad, bins, domain)
-        x = win[samp[rows] - pad + n] @ bb.weights.T
-        chi2[rows] = np.sum(x * x, axis=1)
-        dof[rows] = bb.dof
-    return chi2, dof
+    samples = np.asarray(samples, np.int64)
+    out = np.zeros((samples.size, n))
+    for i, s in enumerate(samples):
+        a = s - pad
+        lo, hi = max(a, 0), min(a + n, vals.size)
+        if hi > lo:
+            out[i, lo - a:hi - a] = vals[lo:hi]
+    return out

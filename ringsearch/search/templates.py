@@ -1,0 +1,233 @@
+"""Template preparation: whitened, orthonormalised damped-sinusoid bases on an FFT grid.
+
+For a template with K = N+1 modes the real basis is the physics layer's
+:func:`ringsearch.physics.basis.damped_basis` (``cos_0, sin_0, cos_1, ...``,
+zero before the start and after :data:`~ringsearch.search.bank.DECAY_TIMES`
+damping times of the longest-lived mode).  The data layer's contract
+(DEVELOPERS.md) gives ``<d, u> = sum_j w[j] * irfft(rfft(u) H)[j]`` with
+``w`` the whitened data and ``H`` its filter response, so on a grid of L
+samples
+
+* the whitened basis spectra are ``V_j = rfft(u_j) H`` and the Gram matrix
+  ``G_jk = <u_j, u_k> = (1/L) sum' Re V_j conj(V_k)`` (Parseval, independent of
+  the start time);
+* with ``G = C C^T`` (Cholesky) the orthonormal spectra are ``E = C^{-1} V``,
+  the projection coordinates ``y = C^{-1} z`` of the correlations ``z`` and
+  ``rho^2 = |y|^2 = z^T G^{-1} z``;
+* the maximum-likelihood amplitudes are ``a = C^{-T} y``; for mode n the complex
+  amplitude is ``A_n = a_{2n} + i a_{2n+1}`` (strain units), so the fitted signal
+  is ``sum_n Re[A_n e^{-i 2 pi f_n (t - t0)}] e^{-(t - t0)/tau_n}``.
+
+Two users: the full-series correlation (:mod:`ringsearch.search.correlate`)
+prepares batches of templates on a data chunk's grid, and the evaluation at
+given start times (:mod:`ringsearch.search.probe`) and the veto
+(:mod:`ringsearch.search.veto`) prepare one template on a short grid of its
+own (:func:`local_template`).  Templates whose normalised Gram matrix has a
+condition number above :data:`MAX_COND` are refused with a reason: their
+modes cannot be separated by the data.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import scipy.fft
+
+from ringsearch.errors import InputError
+from ringsearch.physics.basis import damped_basis
+from ringsearch.search.bank import DECAY_TIMES
+
+#: Templates whose normalised Gram matrix (correlation matrix of the basis) has a
+#: condition number above this are refused: their modes cannot be separated.
+MAX_COND: float = 1e8
+
+
+def template_samples(tau_s: Any, sample_rate: float) -> int:
+    """Length in samples of a template (DECAY_TIMES e-folds of its longest-lived mode).
+
+    Examples
+    --------
+    >>> template_samples([0.004, 0.0013], 4096.0)
+    132
+    """
+    return int(math.ceil(DECAY_TIMES * float(np.max(tau_s)) * sample_rate))
+
+
+def basis_waveforms(f_hz: np.ndarray, tau_s: np.ndarray, n_samples: int, sample_rate: float,
+                    offset_s: float | np.ndarray = 0.0) -> np.ndarray:
+    """Sampled basis of templates, shape (..., 2K, n_samples), cut at DECAY_TIMES e-folds.
+
+    ``f_hz``/``tau_s`` have shape (..., K).  Sample j is at time
+    ``j / sample_rate - offset_s`` after the template start.
+
+    Examples
+    --------
+    >>> u = basis_waveforms(np.array([250.0]), np.array([0.004]), 64, 4096.0)
+    >>> u.shape, float(u[0, 0])
+    ((2, 64), 1.0)
+    """
+    f = np.asarray(f_hz, float)
+    tau = np.asarray(tau_s, float)
+    off = np.asarray(offset_s, float)
+    s = np.arange(n_samples) / sample_rate - off[..., None]
+    return damped_basis(s, f, tau, duration_s=DECAY_TIMES * tau.max(axis=-1))
+
+
+def parseval_gram(v: np.ndarray, n_fft: int) -> np.ndarray:
+    """Real inner products ``(1/L) sum' Re v_i conj(v_j)`` of rfft spectra, shape (..., m, m).
+
+    ``v`` has shape (..., m, n_freq) on the rfft grid of ``n_fft`` samples (the
+    DC and Nyquist bins count once, the others twice), so for real sequences
+    ``a``, ``b`` it equals ``sum_t a[t] b[t]``.
+
+    Examples
+    --------
+    >>> a = np.random.default_rng(0).standard_normal((2, 16))
+    >>> bool(np.allclose(parseval_gram(np.fft.rfft(a), 16), a @ a.T))
+    True
+    """
+    vf = np.ascontiguousarray(v).view(np.float64)  # interleaved (re, im)
+    gram = 2.0 * np.einsum("...it,...jt->...ij", vf, vf)
+    gram -= np.einsum("...i,...j->...ij", v[..., 0], v[..., 0].conj()).real
+    if n_fft % 2 == 0:
+        gram -= np.einsum("...i,...j->...ij", v[..., -1], v[..., -1].conj()).real
+    return gram / n_fft
+
+
+@dataclass
+class PreparedTemplates:
+    """Whitened, orthonormalised template spectra on one FFT grid (one detector).
+
+    ``spectra``: (B, 2K, n_freq) conjugated whitened basis spectra ``conj(V)``,
+    so ``z = irfft(W * spectra)`` are the correlations ``<d, u_j(. - t0)>``;
+    ``chol``: (B, 2K, 2K) Cholesky factors C of G (``cinv`` = C^{-1}, so
+    ``y = cinv @ z`` is orthonormal and ``rho^2 = |y|^2``); ``cond``: normalised-Gram
+    condition numbers; ``ok``: templates accepted; ``reason``: why refused;
+    ``sigma``: (B, 2K) norms ``sqrt(G_jj)`` of the basis functions.
+    """
+
+    spectra: np.ndarray
+    chol: np.ndarray
+    cinv: np.ndarray
+    cond: np.ndarray
+    ok: np.ndarray
+    reason: list[str]
+    sigma: np.ndarray
+
+
+def prepare_templates(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray,
+                      n_fft: int, sample_rate: float, max_cond: float = MAX_COND,
+                      offset_s: float | np.ndarray = 0.0) -> PreparedTemplates:
+    """Whiten with ``response`` (H on the rfft grid of n_fft), Gram, Cholesky, orthonormalise.
+
+    Examples
+    --------
+    >>> H = np.ones(4096 // 2 + 1)
+    >>> p = prepare_templates(np.array([[250.0]]), np.array([[0.004]]), H, 4096, 4096.0)
+    >>> bool(p.ok[0]), p.spectra.shape
+    (True, (1, 2, 2049))
+    """
+    f = np.atleast_2d(np.asarray(f_hz, float))
+    tau = np.atleast_2d(np.asarray(tau_s, float))
+    # sample only the template's support; rfft zero-pads it to n_fft
+    n_sup = min(n_fft, template_samples(tau, sample_rate) + 2)
+    u = basis_waveforms(f, tau, n_sup, sample_rate, offset_s)
+    v = scipy.fft.rfft(u, n=n_fft, axis=-1) * response
+    gram = parseval_gram(v, n_fft)
+    sig = np.sqrt(np.clip(np.einsum("bii->bi", gram), 0, None))
+    b, k2 = gram.shape[:2]
+    cond = np.full(b, np.inf)
+    ok = np.zeros(b, bool)
+    reason = [""] * b
+    chol = np.zeros_like(gram)
+    cinv = np.zeros_like(gram)
+    eye = np.eye(k2)
+    for i in range(b):
+        if np.any(sig[i] <= 0):
+            reason[i] = "a mode has no power inside [f_low, f_high]"
+            continue
+        corr = gram[i] / np.outer(sig[i], sig[i])
+        ev = np.linalg.eigvalsh(corr)
+        cond[i] = ev[-1] / ev[0] if ev[0] > 0 else np.inf
+        if not cond[i] <= max_cond:
+            reason[i] = (f"Gram matrix numerically singular (condition number {cond[i]:.3g} "
+                         f"> {max_cond:.0e}): its modes cannot be separated by the data")
+            continue
+        try:
+            chol[i] = np.linalg.cholesky(gram[i])
+        except np.linalg.LinAlgError:
+            reason[i] = "Gram matrix not positive definite"
+            continue
+        cinv[i] = np.linalg.solve(chol[i], eye)
+        ok[i] = True
+    # conj(V) in place (flip the imaginary parts of the interleaved view).  The
+    # orthonormalisation C^{-1} is applied to the correlations in the time domain, on
+    # the valid start times only, which is cheaper than forming C^{-1} V here.
+    v.view(np.float64)[..., 1::2] *= -1.0
+    return PreparedTemplates(v, chol, cinv, cond, ok, reason, sig)
+
+
+@dataclass
+class LocalTemplate:
+    """One template whitened on a short grid of its own, for evaluation at given start times.
+
+    ``basis``: (2K, n) whitened orthonormal basis ``e_j`` rolled so that the
+    template starts at sample ``pad`` of the grid, so for a data segment
+    ``seg = whitened[s - pad : s - pad + n]`` the projection coordinates at
+    start sample s are ``basis @ seg`` and ``rho^2 = |basis @ seg|^2``;
+    ``to_amplitude``: (2K, 2K) matrix C^{-T} taking those coordinates to the
+    maximum-likelihood real amplitudes; ``cond``: the condition number of the
+    normalised Gram matrix; ``spectrum``: (2K, n_freq) the orthonormal spectra
+    ``E`` (unrolled), which the veto's frequency bands need; callers that keep
+    many templates drop it (None) once the veto is built.
+    """
+
+    basis: np.ndarray
+    to_amplitude: np.ndarray
+    pad: int
+    n: int
+    cond: float
+    spectrum: np.ndarray | None = None
+
+
+def local_grid(tau_s: Any, sample_rate: float, pad: int) -> int:
+    """FFT length holding a template (longest decay ``max(tau_s)``) plus the whitening filter.
+
+    Examples
+    --------
+    >>> local_grid([0.004], 4096.0, 100) >= 8 * 0.004 * 4096 + 200
+    True
+    """
+    return scipy.fft.next_fast_len(template_samples(tau_s, sample_rate) + 2 * pad + 2,
+                                   real=True)
+
+
+def local_template(f_hz: Any, tau_s: Any, response: np.ndarray, n: int, sample_rate: float,
+                   pad: int, max_cond: float = MAX_COND) -> LocalTemplate:
+    """Prepare one template (modes ``f_hz``, ``tau_s``) on a grid of ``n`` samples.
+
+    ``response`` is the data's filter response H on the rfft grid of ``n``;
+    ``pad`` the whitening filter's half-length.  Raises InputError when the
+    template is refused.
+
+    Examples
+    --------
+    >>> H = np.ones(4096 // 2 + 1)
+    >>> lt = local_template([250.0], [0.004], H, 4096, 4096.0, 100)
+    >>> lt.basis.shape, bool(np.allclose(lt.basis @ lt.basis.T, np.eye(2)))
+    ((2, 4096), True)
+    """
+    f = np.atleast_2d(np.asarray(f_hz, float))
+    tau = np.atleast_2d(np.asarray(tau_s, float))
+    if f.shape != tau.shape:
+        raise InputError("f_hz and tau_s of a template must have the same length.")
+    prep = prepare_templates(f, tau, response, n, sample_rate, max_cond)
+    if not prep.ok[0]:
+        raise InputError(f"template refused: {prep.reason[0]}.")
+    e_spec = prep.cinv[0] @ np.conj(prep.spectra[0])  # (2K, n_freq) orthonormal spectra
+    basis = np.roll(scipy.fft.irfft(e_spec, n, axis=-1), pad, axis=-1)
+    return LocalTemplate(basis, np.ascontiguousarray(prep.cinv[0].T), int(pad), int(n),
+                         float(prep.cond[0]), e_spec)
