@@ -1,10 +1,14 @@
 """Assemble a finished campaign's chunk tables into the final results.
 
-Workers report, per injection, its optimal SNRs and, per template overtone
-count, its best matching trigger (if any) with the ranking statistic; and
-per chunk the time-slide background.  The detection threshold is applied
-here, once, over the pooled background of the whole campaign, so the FAR
-threshold uses all the background the campaign produced.
+Workers run the search engine (:class:`ringsearch.search.engine.Search`, the
+one ``ringsearch search`` runs) on every chunk and report, per injection, its
+optimal SNRs and, per template overtone count, the engine's candidate it
+matched (if any) with its ranking statistic; and per chunk the engine's
+time-slide events and each slide's coincident seconds.  The detection
+threshold is applied here, once, over the background pooled from every
+chunk, so the FAR threshold uses all the background the campaign produced;
+FARs come from :func:`ringsearch.search.significance.far_from_counts` (an
+upper limit, flagged, when nothing in the background is louder).
 
 Tables written (all atomically):
 
@@ -15,18 +19,28 @@ Tables written (all atomically):
     the first detector).
 ``found.parquet``
     one row per (injection, template overtone count): ``searched`` (the
-    filter covered the injection's time window in every detector), ``found``
-    (searched and the best statistic in the window at or above the
-    threshold), ``stat``, ``far_per_year``, ``trigger_gps``, recovered
-    ``mass, spin, f_hz, tau_s`` and the errors ``mass_error`` (recovered -
-    true, Msun), ``spin_error``, ``f_error_hz``, ``tau_error_s``, ``gps_error_s``.
+    injection's arrival lies in searched start time of every detector),
+    ``found`` (searched, matched by a candidate within ``match_window_s``, and
+    the candidate's ranking statistic at or above the threshold), ``stat``
+    (the candidate's network re-weighted SNR), ``far_per_year`` and
+    ``far_is_upper_limit`` (from the pooled background), ``trigger_gps``
+    (candidate start at its ``anchor_detector``), ``<DET>_snr`` and
+    ``<DET>_snr_reweighted``, ``on_box_edge``, recovered ``mass, spin, f_hz,
+    tau_s`` and the errors ``mass_error`` (recovered - true, Msun),
+    ``spin_error``, ``f_error_hz``, ``tau_error_s``, ``gps_error_s``.
     Recovered values are NaN exactly when ``searched`` is False.  Injections
     removed by the data conditioning's gates (``gated``; loud signals can
     trip them) count as missed; other unsearched ones (near data edges) are
     left out of the efficiency (``counted`` False) and counted in
     ``summary.json`` (``n_unsearched``).
 ``background.parquet``
-    the pooled time-slide background statistic per template overtone count.
+    the pooled time-slide events (``chunk, template_overtones, slide, stat``).
+``livetime.parquet``
+    the coincident seconds of every chunk's slides (``chunk, template_overtones,
+    slide, live_time_s``): the background time the FARs divide by.
+``candidates.parquet``
+    every zero-lag candidate the engine found in every chunk (``chunk``,
+    ``template_overtones`` and the engine's candidate columns).
 ``threshold.csv``, ``efficiency.csv``, ``sigmoid.csv``, ``sensitivity.csv``,
 ``summary.json``.
 ``overtone_efficiency.csv`` (only with ``[overtones] enabled = true``)
@@ -62,8 +76,9 @@ from ringsearch.campaign.efficiency import (
     overtone_efficiency_table,
     sensitive_volume,
 )
-from ringsearch.files import atomic_path, write_text
+from ringsearch.files import atomic_path, write_json
 from ringsearch.physics.units import YEAR_S
+from ringsearch.search.significance import far_from_counts
 
 #: The quantities efficiency is binned in; distance is left out when unknown.
 BINNED = ("network_snr", "distance_mpc")
@@ -93,14 +108,17 @@ def _write_csv(frame: pd.DataFrame, path: Path) -> None:
         frame.to_csv(tmp, index=False, float_format="%.6g")
 
 
-def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame) -> pd.DataFrame:
+def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame,
+               template_counts: list[int] | None = None) -> pd.DataFrame:
     """Detection threshold on the ranking statistic per template overtone count.
 
     With ``threshold.snr`` the threshold is that value.  With
     ``threshold.far_per_year`` it is the smallest statistic whose rate of
     louder-or-equal background events is at most the target; when the
     background is too short to reach that rate, it is just above the
-    loudest background event and ``limited`` says so.
+    loudest background event and ``limited`` says so.  Either way the pooled
+    background's size and time are reported.  ``template_counts`` defaults to
+    ``search.template_overtones``.
 
     Examples
     --------
@@ -111,17 +129,19 @@ def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame) -
     """
     rows = []
     th = config["threshold"]
-    for n_tpl in config["search"]["template_overtones"]:
-        if th["snr"] is not None:
-            rows.append({"template_overtones": n_tpl, "threshold": th["snr"],
-                         "kind": "snr", "target_far_per_year": math.nan,
-                         "background_years": math.nan,
-                         "n_background": 0, "limited": False})
-            continue
+    counts = template_counts if template_counts is not None else \
+        config["search"]["template_overtones"]
+    for n_tpl in counts:
         stats = (background.loc[background["template_overtones"] == n_tpl, "stat"]
                  .to_numpy(float) if len(background) else np.array([]))
         years = (float(livetime.loc[livetime["template_overtones"] == n_tpl,
                                     "live_time_s"].sum()) / YEAR_S if len(livetime) else 0.0)
+        if th["snr"] is not None:
+            rows.append({"template_overtones": n_tpl, "threshold": th["snr"],
+                         "kind": "snr", "target_far_per_year": math.nan,
+                         "background_years": years,
+                         "n_background": int(len(stats)), "limited": False})
+            continue
         allowed = int(math.floor(th["far_per_year"] * years))  # louder events allowed
         s = np.sort(stats)[::-1]
         if len(s) == 0:
@@ -137,15 +157,6 @@ def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame) -
                      "target_far_per_year": th["far_per_year"], "background_years": years,
                      "n_background": int(len(s)), "limited": limited})
     return pd.DataFrame(rows)
-
-
-def far_of(stat: np.ndarray, background: np.ndarray, years: float) -> np.ndarray:
-    """False-alarm rate per year: background events at least as loud, per background year."""
-    if years <= 0:
-        return np.full(len(stat), np.nan)
-    bg = np.sort(background)
-    louder = len(bg) - np.searchsorted(bg, stat, side="left")
-    return louder / years
 
 
 def accuracy_table(found: pd.DataFrame) -> pd.DataFrame:
@@ -212,19 +223,6 @@ def overtone_results(config: dict, injections: pd.DataFrame, found: pd.DataFrame
     return table, entry
 
 
-def _json_safe(value):
-    """Plain JSON: numpy scalars to Python, NaN/inf to null."""
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, np.generic):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
 def assemble(out: str | Path) -> dict:
     """Build the final tables of a finished campaign folder; returns the summary.
 
@@ -240,6 +238,7 @@ def assemble(out: str | Path) -> dict:
     found = _read_chunk_tables(out, "found").drop(columns="chunk", errors="ignore")
     background = _read_chunk_tables(out, "background")
     livetime = _read_chunk_tables(out, "livetime")
+    candidates = _read_chunk_tables(out, "candidates")
 
     extra = [c for c in per_inj.columns if c != "injection_id" and c not in plan.columns]
     overlap = [c for c in per_inj.columns if c != "injection_id" and c in plan.columns]
@@ -249,7 +248,8 @@ def assemble(out: str | Path) -> dict:
         injections[c] = injections[c].fillna(injections["injection_id"].map(filled))
     injections = injections.sort_values("injection_id").reset_index(drop=True)
 
-    th = thresholds(config, background, livetime)
+    counts = sorted(int(n) for n in found["template_overtones"].unique()) if len(found) else None
+    th = thresholds(config, background, livetime, counts)
     found = found.merge(th[["template_overtones", "threshold"]], on="template_overtones",
                         how="left")
     found["found"] = found["searched"].astype(bool) & (found["stat"] >= found["threshold"])
@@ -258,13 +258,18 @@ def assemble(out: str | Path) -> dict:
     # gated injections were missed by the search; others outside filtered time are left out
     found["counted"] = found["searched"].astype(bool) | found["gated"].astype(bool)
     found["far_per_year"] = np.nan
+    found["far_is_upper_limit"] = False
     for row in th.itertuples():
-        sel = found["template_overtones"] == row.template_overtones
-        if row.kind == "far" and len(background):
-            bg = background.loc[background["template_overtones"] == row.template_overtones,
-                                "stat"].to_numpy(float)
-            found.loc[sel, "far_per_year"] = far_of(found.loc[sel, "stat"].to_numpy(float),
-                                                    bg, row.background_years)
+        sel = (found["template_overtones"] == row.template_overtones) & \
+            found["stat"].notna()
+        if row.background_years > 0 and sel.any():
+            bg = np.sort(background.loc[background["template_overtones"]
+                                        == row.template_overtones, "stat"].to_numpy(float))
+            stat = found.loc[sel, "stat"].to_numpy(float)
+            n_louder = bg.size - np.searchsorted(bg, stat, side="left")
+            far = far_from_counts(n_louder, row.background_years * YEAR_S)
+            found.loc[sel, "far_per_year"] = far["far_per_year"].to_numpy()
+            found.loc[sel, "far_is_upper_limit"] = far["far_is_upper_limit"].to_numpy()
     truth_cols = ["injection_id", "injected_overtones", "gps", "mass", "spin", "network_snr"]
     for c in ("distance_mpc", "f_0_hz", "tau_0_s", "arrival_gps"):
         if c in injections.columns:
@@ -326,6 +331,11 @@ def assemble(out: str | Path) -> dict:
         {"chunk": pd.Series(dtype=int), "template_overtones": pd.Series(dtype=int),
          "stat": pd.Series(dtype=float)})
     _write_parquet(bg_out, out / "background.parquet")
+    _write_parquet(livetime if len(livetime) else pd.DataFrame(
+        {"chunk": pd.Series(dtype=int), "template_overtones": pd.Series(dtype=int),
+         "slide": pd.Series(dtype=int), "live_time_s": pd.Series(dtype=float)}),
+        out / "livetime.parquet")
+    _write_parquet(candidates, out / "candidates.parquet")
     _write_csv(th, out / "threshold.csv")
     _write_csv(efficiency, out / "efficiency.csv")
     _write_csv(sigmoid, out / "sigmoid.csv")
@@ -363,5 +373,5 @@ def assemble(out: str | Path) -> dict:
     }
     if overtone_entry is not None:
         summary["overtones"] = overtone_entry
-    write_text(out / "summary.json", json.dumps(_json_safe(summary), indent=2))
+    write_json(out / "summary.json", summary)
     return summary

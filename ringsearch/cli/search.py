@@ -28,6 +28,10 @@ examples:
       reuse a saved bank
   ringsearch search H1.hdf5 L1.hdf5 --out run4 --veto-bins 16 --veto-domain frequency
       signal-consistency test with 16 frequency bands instead of 8 time slices
+  ringsearch search inj/*.hdf5 --psd-from H1.hdf5 L1.hdf5 --bank run2/bank.parquet \
+      --out run6
+      search data made by `ringsearch inject`, whitened with the PSD of the data before
+      injection (what a campaign does: then the two agree injection by injection)
   ringsearch search strain.txt --detector H1 --sample-rate 4096 --data-start 1000000000 \
       --out run5
       one-column text strain (here --gps-start is the searched window, so the first
@@ -135,6 +139,10 @@ def register(subparsers) -> None:
     p.add_argument("--f-high", type=float, metavar="HZ",
                    help="upper band edge in Hz (default 0.8 x Nyquist, below the anti-alias "
                         "roll-off of open data)")
+    p.add_argument("--psd-from", nargs="+", metavar="FILE",
+                   help="estimate each detector's PSD from these strain files instead of the "
+                        "searched ones (e.g. the same stretch before injections, as campaigns "
+                        "do, or off-source data); same detectors as FILE")
     p.add_argument("--dq-level", default="CBC_CAT2", metavar="LEVEL",
                    help="GWOSC data-quality level to pass (default CBC_CAT2; NONE to skip)")
     p.add_argument("--seed", type=int, default=0,
@@ -172,7 +180,9 @@ def run(args: argparse.Namespace) -> int:
         f_high=args.f_high, gate_threshold=args.gate_threshold, dq_level=args.dq_level,
         gps_start=args.gps_start, gps_end=args.gps_end, cluster_window_s=args.cluster_window)
     search = Search(config, bank=bank)
-    res = search.run(args.files, progress=sys.stderr.isatty(), **pipeline_read_kwargs(args))
+    read = pipeline_read_kwargs(args)
+    psds = search.estimate_psds(args.psd_from, **read) if args.psd_from else None
+    res = search.run(args.files, progress=sys.stderr.isatty(), psds=psds, **read)
     res.write(out, plots=not args.no_plots)
     _print(res)
     return 0

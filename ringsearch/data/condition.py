@@ -389,6 +389,49 @@ def _gate_window(n, t0, fs, gates, width, taper):
     return wts
 
 
+def usable_segments(strain, analysable=None):
+    """Finite samples of ``strain`` inside ``analysable`` (all finite data when None).
+
+    Examples
+    --------
+    >>> from ringsearch.data.noise import gaussian_noise
+    >>> list(usable_segments(gaussian_noise("design", 8.0, 2048, 1, gps_start=0.0)))
+    [Segment(0.0, 8.0)]
+    """
+    from gwpy.segments import SegmentList
+
+    from ringsearch.data.io import finite_segments
+
+    usable = finite_segments(strain)
+    if analysable is not None:
+        usable &= SegmentList(analysable).coalesce()
+    usable = usable.coalesce()
+    if not usable:
+        det = strain.name or (str(strain.channel).split(":", 1)[0] if strain.channel else "")
+        raise InputError(f"strain {det} has no finite data inside the analysable segments.")
+    return usable
+
+
+def conditioning_psd(strain, seglen: float = 4.0, analysable=None, exclude=None):
+    """The PSD :func:`condition` estimates when none is given (Welch median of usable data).
+
+    Use it to whiten one stretch with the PSD of another, e.g. data with
+    injections with the PSD of the same data before injection, exactly as
+    :func:`condition` would have estimated it there.
+
+    Examples
+    --------
+    >>> from ringsearch.data.noise import gaussian_noise
+    >>> psd = conditioning_psd(gaussian_noise("design", 32.0, 2048, 1))
+    >>> float(psd.df.value)
+    0.25
+    """
+    from ringsearch.data.psd import estimate_psd
+
+    return estimate_psd(strain, seglen=seglen, segments=usable_segments(strain, analysable),
+                        exclude=exclude)
+
+
 def condition(strain, f_low: float = DEFAULT_F_LOW, f_high: float | None = None, psd=None,
               seglen: float = 4.0, analysable=None, gate_threshold: float | None = None,
               truncation: float | None = None, gate_width: float = DEFAULT_GATE_WIDTH,
@@ -444,7 +487,6 @@ def condition(strain, f_low: float = DEFAULT_F_LOW, f_high: float | None = None,
     from gwpy.timeseries import TimeSeries
     from scipy.fft import irfft, next_fast_len, rfft
 
-    from ringsearch.data.io import finite_segments
     from ringsearch.data.psd import estimate_psd
 
     if not (hasattr(strain, "sample_rate") and hasattr(strain, "t0")):
@@ -475,12 +517,7 @@ def condition(strain, f_low: float = DEFAULT_F_LOW, f_high: float | None = None,
         raise InputError(f"gate_width {gate_width!r} must be > 0 and gate_taper "
                          f"{gate_taper!r} >= 0.")
 
-    usable = finite_segments(strain)
-    if analysable is not None:
-        usable &= SegmentList(analysable).coalesce()
-    usable = usable.coalesce()
-    if not usable:
-        raise InputError(f"strain {det} has no finite data inside the analysable segments.")
+    usable = usable_segments(strain, analysable)
     if psd is None:
         psd = estimate_psd(strain, seglen=seglen, segments=usable, exclude=psd_exclude)
 

@@ -304,6 +304,17 @@ class SearchResult:
     method: str
     probes: dict = field(default_factory=dict, repr=False)
     extra: dict = field(default_factory=dict, repr=False)
+    valid: dict = field(default_factory=dict, repr=False)
+
+    def valid_starts(self) -> dict:
+        """Detector -> SegmentList of the start times searched (analysable, template fits,
+        inside the GPS window).
+
+        Examples
+        --------
+        >>> res.valid_starts()["H1"]  # doctest: +SKIP
+        """
+        return dict(self.valid)
 
     @property
     def detectors(self) -> list[str]:
@@ -497,21 +508,7 @@ class Search:
         from gwpy.segments import Segment, SegmentList
 
         cfg = self.config
-        if isinstance(data, Mapping):
-            items = dict(data)
-            if detector is not None or sample_rate is not None or data_start is not None:
-                raise InputError("detector, sample_rate and data_start describe strain files, "
-                                 "so they do not apply to strain given as a mapping "
-                                 "{detector: strain}.")
-        else:
-            from ringsearch.data.io import read_detectors
-
-            paths = [data] if isinstance(data, str | bytes) or hasattr(data, "__fspath__") \
-                else list(data)
-            if not paths:
-                raise InputError("no strain files given.")
-            items = dict(read_detectors(paths, dq_level=cfg.dq_level, detector=detector,
-                                        sample_rate=sample_rate, gps_start=data_start))
+        items = self._strain_items(data, detector, sample_rate, data_start)
         from ringsearch.data.condition import condition
 
         conds: dict = {}
@@ -521,6 +518,9 @@ class Search:
                 continue
             ts, segs = item if isinstance(item, tuple) else (item, None)
             psd = None if psds is None else psds.get(det)
+            if psds is not None and psd is None:
+                raise InputError(f"no PSD was given for detector {det} (PSDs given for "
+                                 f"{', '.join(psds) or 'none'}).")
             conds[det] = condition(ts, f_low=cfg.f_low, f_high=cfg.f_high, psd=psd,
                                    seglen=cfg.psd_seglen_s, analysable=segs,
                                    gate_threshold=cfg.gate_threshold)
@@ -543,6 +543,48 @@ class Search:
                 raise InputError(f"no analysable time is left in the {det} data after data "
                                  "quality, gating and the GPS window.")
         return conds
+
+    def _strain_items(self, data: Any, detector: str | None, sample_rate: float | None,
+                      data_start: float | None) -> dict:
+        """Paths or a mapping -> ``{det: item}`` (items: series, (series, segments) or
+        conditioned data)."""
+        if isinstance(data, Mapping):
+            if detector is not None or sample_rate is not None or data_start is not None:
+                raise InputError("detector, sample_rate and data_start describe strain files, "
+                                 "so they do not apply to strain given as a mapping "
+                                 "{detector: strain}.")
+            return dict(data)
+        from ringsearch.data.io import read_detectors
+
+        paths = [data] if isinstance(data, str | bytes) or hasattr(data, "__fspath__") \
+            else list(data)
+        if not paths:
+            raise InputError("no strain files given.")
+        return dict(read_detectors(paths, dq_level=self.config.dq_level, detector=detector,
+                                   sample_rate=sample_rate, gps_start=data_start))
+
+    def estimate_psds(self, data: Any, *, detector: str | None = None,
+                      sample_rate: float | None = None,
+                      data_start: float | None = None) -> dict:
+        """The PSDs this search would estimate from ``data`` (paths or strain series).
+
+        Pass them to :meth:`run` (``psds=``) to whiten other data with them, e.g.
+        data with injections with the PSD of the same data before injection.
+
+        Examples
+        --------
+        >>> psds = Search().estimate_psds(["H-H1_LOSC_4_V2-1126259446-32.hdf5"])  # doctest: +SKIP
+        """
+        from ringsearch.data.condition import conditioning_psd
+
+        out = {}
+        for det, item in self._strain_items(data, detector, sample_rate, data_start).items():
+            if _is_conditioned(item):
+                out[det] = item.psd
+                continue
+            ts, segs = item if isinstance(item, tuple) else (item, None)
+            out[det] = conditioning_psd(ts, self.config.psd_seglen_s, segs)
+        return out
 
     def make_bank(self, conds: Mapping[str, Any], progress: bool = False) -> Bank:
         """The given bank, or one placed over the box with the detectors' combined PSD.
@@ -695,6 +737,7 @@ class Search:
         trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress)
         window = self.cluster_window(bank)
         extra: dict[str, Any] = {}
+        valid = {d: self._valid(c, bank) for d, c in conds.items()}
         if len(dets) == 1:
             d = dets[0]
             cands = single_detector_far(trig, analysed[d], column="snr_reweighted")
@@ -704,8 +747,7 @@ class Search:
             slides = pd.DataFrame({"slide": [0], f"shift_{d}_s": [0.0],
                                    "live_s": [analysed[d]]})
             return SearchResult(cfg, bank, conds, trig, cands, _empty_background(dets), slides,
-                                refused, analysed, SINGLE_METHOD, probes, extra)
-        valid = {d: self._valid(c, bank) for d, c in conds.items()}
+                                refused, analysed, SINGLE_METHOD, probes, extra, valid)
         zero_plan = slide_plan(valid, 0, 1.0)[0]
         if background_exclude:
             from gwpy.segments import Segment, SegmentList
@@ -749,7 +791,7 @@ class Search:
         extra.update(slide_step_s=step, requested_slides=cfg.n_slides, n_slides=n_use,
                      coincident_time_s=zero_plan.live_s)
         return SearchResult(cfg, bank, conds, trig, cands, background, slides, refused,
-                            analysed, SLIDES_METHOD, probes, extra)
+                            analysed, SLIDES_METHOD, probes, extra, valid)
 
 
 def _empty_background(dets: list[str]) -> pd.DataFrame:
