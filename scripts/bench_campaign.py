@@ -46,11 +46,10 @@ def run_one(example: Path, count: int, workers: int, scratch: Path) -> dict:
     chunks = pd.read_parquet(out / "plan" / "chunks.parquet")
     data_s = float((chunks["gps_end"] - chunks["gps_start"]).sum())
     n_templates = 0
-    from ringsearch.campaign.worker import _search_bank
+    from ringsearch.campaign.worker import campaign_bank, template_overtones
 
-    f_high = spec.search["f_high"] or 0.8 * spec.data["sample_rate"] / 2
-    for n in spec.search["template_overtones"]:
-        n_templates += len(_search_bank(spec.config, n, f_high))
+    for n in template_overtones(spec.config):
+        n_templates += len(campaign_bank(spec.config, n))
     cpu = status["cpu_s"]
     template_seconds = n_templates * data_s * len(spec.detectors)
     return {

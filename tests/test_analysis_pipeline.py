@@ -213,12 +213,13 @@ def test_candidate_from_search_takes_coincident_start_times(tmp_path):
 
     pd.DataFrame({"gps": [10.0, 20.0], "snr": [6.0, 9.0], "detector": ["H1", "L1"]}).to_parquet(
         tmp_path / "triggers.parquet")
-    pd.DataFrame({"gps": [20.003, 5.0], "network_snr": [12.0, 7.0],
+    # slid_gps (a search's column, not a detector) must not become a "slid" detector
+    pd.DataFrame({"gps": [20.003, 5.0], "slid_gps": [20.003, 5.0], "network_snr": [12.0, 7.0],
                   "H1_gps": [20.0, 5.0], "L1_gps": [20.003, 5.001]}).to_parquet(
         tmp_path / "candidates.parquet")
     found = candidate_from_search(tmp_path)
     assert found["gps"] == 20.003
     assert found["time_shifts"]["H1"] == pytest.approx(-0.003)
-    assert found["time_shifts"]["L1"] == 0.0
+    assert found["time_shifts"]["L1"] == 0.0 and set(found["time_shifts"]) == {"H1", "L1"}
     # an explicit trigger row still wins over the candidates
     assert candidate_from_search(tmp_path, 0)["gps"] == 10.0

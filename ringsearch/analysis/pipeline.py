@@ -220,12 +220,12 @@ def sky_geometry(strain_input, sky: tuple[float, float], gps: float,
 def candidate_from_search(folder: str | os.PathLike, trigger: int | None = None) -> dict:
     """Start time (and detector, template) of a candidate in a search output folder.
 
-    ``trigger`` is the row number (0-based) in ``triggers.parquet``.  By
-    default the loudest coincident candidate of ``candidates.parquet`` is
-    taken when there is one, and its per-detector start times are returned
-    as ``time_shifts`` (seconds relative to ``gps``) so every detector's
-    segment starts where that detector's template did; otherwise the loudest
-    single-detector trigger.
+    ``trigger`` is a ``trigger_id`` of ``triggers.parquet``.  By default the
+    loudest candidate of ``candidates.parquet`` is taken when there is one; with
+    several detectors each detector's start of the candidate's template is
+    returned as ``time_shifts`` (seconds relative to ``gps``), so every
+    detector's segment starts where that detector's template did.  Otherwise
+    the loudest trigger by its ranking SNR.
 
     Examples
     --------
@@ -239,24 +239,27 @@ def candidate_from_search(folder: str | os.PathLike, trigger: int | None = None)
     trig = pd.read_parquet(table)
     if len(trig) == 0:
         raise InputError(f"the search folder {folder} holds no triggers.")
+    rank = "snr_reweighted" if "snr_reweighted" in trig.columns else "snr"
     cand_table = folder / "candidates.parquet"
     if trigger is None and cand_table.exists():
         cands = pd.read_parquet(cand_table)
-        if len(cands):
+        dets = sorted(set(trig["detector"].astype(str)))
+        if len(cands) and len(dets) > 1:
             best = cands.loc[cands["network_snr"].idxmax()]
             gps = float(best["gps"])
-            shifts = {}
-            for col in cands.columns:
-                if col.endswith("_gps") and pd.notna(best[col]):
-                    shifts[col[:-4]] = float(best[col]) - gps
+            shifts = {d: float(best[f"{d}_gps"]) - gps for d in dets
+                      if f"{d}_gps" in cands.columns and pd.notna(best[f"{d}_gps"])}
             return {"gps": gps, "detector": "network", "snr": float(best["network_snr"]),
                     "time_shifts": shifts}
     if trigger is None:
-        row = trig.loc[trig["snr"].idxmax()]
+        row = trig.loc[trig[rank].idxmax()]
     else:
-        if not (0 <= int(trigger) < len(trig)):
-            raise InputError(f"trigger {trigger} is not a row of {table} (0..{len(trig) - 1}).")
-        row = trig.iloc[int(trigger)]
+        ids = trig["trigger_id"] if "trigger_id" in trig.columns else pd.Series(trig.index)
+        hit = np.flatnonzero(ids.to_numpy() == int(trigger))
+        if hit.size == 0:
+            raise InputError(f"trigger {trigger} is not a trigger_id of {table} "
+                             f"({int(ids.min())}..{int(ids.max())}).")
+        row = trig.iloc[int(hit[0])]
     out = {"gps": float(row["gps"]), "detector": str(row.get("detector", "")),
            "snr": float(row.get("snr", math.nan))}
     for k in ("mass_msun", "spin", "n_overtones"):

@@ -40,7 +40,7 @@ from ringsearch import __version__
 from ringsearch.campaign.draw import plan_campaign
 from ringsearch.campaign.spec import CampaignSpec
 from ringsearch.errors import InputError
-from ringsearch.files import atomic_path, staged_directory, write_text
+from ringsearch.files import atomic_path, staged_directory, write_json
 
 #: A worker: (config dict, chunk row dict, the chunk's injections) -> named tables.
 Worker = Callable[[dict, dict, pd.DataFrame], dict[str, pd.DataFrame]]
@@ -142,7 +142,7 @@ def prepare_output(spec: CampaignSpec, out: str | Path,
         chunks.to_parquet(stage / "plan" / "chunks.parquet", index=False)
         injections.to_parquet(stage / "plan" / "injections.parquet", index=False)
         (stage / "campaign.toml").write_text(spec.text or "")
-        (stage / MANIFEST).write_text(json.dumps(manifest, indent=2, sort_keys=True))
+        write_json(stage / MANIFEST, manifest, sort_keys=True)
     return manifest
 
 
@@ -182,7 +182,7 @@ def save_chunk(out: str | Path, result: dict) -> None:
             frame.to_parquet(tmp, index=False)
     meta = {k: v for k, v in result.items() if k != "tables"}
     meta["tables"] = sorted(result["tables"])
-    write_text(folder / f"{name}.done", json.dumps(meta, sort_keys=True))
+    write_json(folder / f"{name}.done", meta, indent=None, sort_keys=True)
 
 
 def _connect(address: str):

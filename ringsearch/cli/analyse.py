@@ -26,7 +26,8 @@ examples:
       coherent network: common h+/hx amplitudes through each detector's antenna
       pattern at RA 1.95 rad, Dec -1.27 rad; start times shifted by the delays
   ringsearch analyse H1.hdf5 --from-search search-out --trigger 3 --out cand3
-      start time taken from row 3 of search-out/triggers.parquet (default: loudest)
+      start time of trigger_id 3 of search-out/triggers.parquet (default: the loudest
+      candidate, each detector at its own start of the candidate's template)
   ringsearch analyse strain.txt --detector H1 --sample-rate 4096 --gps-start 1000000000 \
       --gps 1000000008.0 --out cand-txt
       one-column text strain: its detector, sample rate and first sample's GPS time
@@ -119,7 +120,7 @@ def register(subparsers) -> None:
     src.add_argument("--from-search", metavar="DIR",
                      help="search output folder; the start time comes from its triggers")
     p.add_argument("--trigger", type=int, metavar="ID",
-                   help="row of DIR/triggers.parquet (0-based; default: the loudest)")
+                   help="trigger_id of DIR/triggers.parquet (default: the loudest candidate)")
     p.add_argument("--out", required=True, metavar="DIR", help="output folder (new or empty)")
     p.add_argument("--max-overtones", type=int, default=2, metavar="N",
                    help="largest overtone count compared (default 2)")

@@ -33,7 +33,12 @@ import scipy.fft
 from ringsearch.data.segments import mask_from_segments, shorten_ends
 from ringsearch.errors import InputError
 from ringsearch.search.bank import DECAY_TIMES
-from ringsearch.search.templates import MAX_COND, prepare_templates, template_samples
+from ringsearch.search.templates import (
+    MAX_COND,
+    one_template,
+    prepare_templates,
+    template_samples,
+)
 
 #: Energy fraction of the whitening filter's impulse response left outside the
 #: short grids on which single templates are evaluated (:func:`local_pad`):
@@ -347,10 +352,7 @@ def snr_series(cond: Any, f_hz: Any, tau_s: Any, *, gps_start: float | None = No
     >>> s.gps[s.snr.argmax()]  # doctest: +SKIP
     """
     vals, fs, t0 = data_arrays(cond)
-    f = np.atleast_1d(np.asarray(f_hz, float))[None]
-    tau = np.atleast_1d(np.asarray(tau_s, float))[None]
-    if f.shape != tau.shape:
-        raise InputError("f_hz and tau_s of a template must have the same length.")
+    f, tau = one_template(f_hz, tau_s)
     pad = filter_length(cond)
     longest = float(DECAY_TIMES * tau.max())
     plan = plan_chunks(vals.size, fs, longest, pad)
@@ -401,10 +403,7 @@ def projection_snr(cond: Any, f_hz: Any, tau_s: Any, gps: float, *,
     >>> r["snr"]  # doctest: +SKIP
     """
     vals, fs, t0 = data_arrays(cond)
-    f = np.atleast_1d(np.asarray(f_hz, float))[None]
-    tau = np.atleast_1d(np.asarray(tau_s, float))[None]
-    if f.shape != tau.shape:
-        raise InputError("f_hz and tau_s of a template must have the same length.")
+    f, tau = one_template(f_hz, tau_s)
     pad = filter_length(cond)
     tail = template_samples(tau, fs)
     x = (float(gps) - t0) * fs

@@ -767,12 +767,9 @@ class Search:
         plan = slide_plan(bg_valid, n_use, step)[1:] if n_use else []
         zero = network_events(probes, trig, zero_plan, cfg.tolerance_s, window, bank,
                               bank.on_box_edge())
-        from tqdm import tqdm
-
-        bg = [network_events(probes, trig, s, cfg.tolerance_s, window, bank, bank.on_box_edge())
-              for s in tqdm(plan, desc="time slides", unit=" slides", disable=not progress,
-                            leave=False)]
-        background = (pd.concat(bg, ignore_index=True) if bg else _empty_background(dets))
+        background = (network_events(probes, trig, plan, cfg.tolerance_s, window, bank,
+                                     bank.on_box_edge(), progress=progress)
+                      if plan else _empty_background(dets))
         slides = pd.DataFrame({"slide": [0] + [s.index for s in plan],
                                **{f"shift_{d}_s": [0.0] + [s.shifts[d] for s in plan]
                                   for d in dets},

@@ -174,9 +174,10 @@ def slide_plan(valid: Mapping[str, Any], n_slides: int, step_s: float) -> list[S
 
     Examples
     --------
-    >>> plan = slide_plan({"H1": [(0, 100)], "L1": [(0, 40), (60, 100)]}, 2, 10.0)
+    >>> gappy = [(0, 40), (60, 100)]
+    >>> plan = slide_plan({"H1": gappy, "L1": gappy}, 2, 10.0)
     >>> [round(s.live_s, 1) for s in plan]
-    [80.0, 60.0, 60.0]
+    [80.0, 70.0, 60.0]
     """
     from gwpy.segments import Segment, SegmentList
 
@@ -228,10 +229,11 @@ def _in_segments(t: np.ndarray, segs: Any) -> np.ndarray:
     return (i >= 0) & (t < b[np.clip(i, 0, None)])
 
 
-def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame, slide: Slide,
-                   tolerance_s: float, cluster_window_s: float, bank: Any,
-                   edge: np.ndarray | None = None) -> pd.DataFrame:
-    """Network events of one slide (or the zero lag), seeded by every trigger.
+def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame,
+                   slides: Slide | Sequence[Slide], tolerance_s: float,
+                   cluster_window_s: float, bank: Any,
+                   edge: np.ndarray | None = None, progress: bool = False) -> pd.DataFrame:
+    """Network events of time slides (or the zero lag), seeded by every trigger.
 
     Parameters
     ----------
@@ -239,11 +241,15 @@ def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame, slide: S
     triggers : DataFrame
         All detectors' triggers (``trigger_id``, ``detector``, ``gps``,
         ``template_index``, ``snr``, ``snr_reweighted``, ``chisq``, ``chisq_dof``).
-    slide : Slide
-        Shifts and coincident time (from :func:`slide_plan`).
+    slides : Slide or sequence of Slide
+        Shifts and coincident time (from :func:`slide_plan`).  Each seed is
+        taken through every slide before the next, so the probes' caches of
+        prepared templates serve all slides.
     tolerance_s, cluster_window_s : float
-        Timing allowance added to the light-travel time; events closer than
-        the cluster window (in slid time) keep the loudest.
+        Timing allowance added to the light-travel time; events of one slide
+        closer than the cluster window (in slid time) keep the loudest.
+    progress : bool
+        A progress bar over the seeds on stderr.
 
     Returns
     -------
@@ -259,58 +265,71 @@ def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame, slide: S
     --------
     >>> ev = network_events(probes, triggers, plan[0], 0.01, 0.05, bank)  # doctest: +SKIP
     """
+    if isinstance(slides, Slide):
+        slides = [slides]
     dets = list(probes)
     cols = _columns(dets)
     windows = coincidence_windows(dets, tolerance_s)
-    span = slide.span
     by_det = {d: triggers[triggers["detector"] == d] for d in dets}
     own = {d: (g["gps"].to_numpy(float), g["snr_reweighted"].to_numpy(float),
                g["trigger_id"].to_numpy(np.int64)) for d, g in by_det.items()}
     tid = bank.table["template_id"].to_numpy()
     rows: list[dict] = []
+    from tqdm import tqdm
+
+    bar = tqdm(total=len(triggers), desc="network events" if len(slides) == 1 else
+               f"time slides ({len(slides)})", unit=" seeds", disable=not progress, leave=False)
     for a in dets:
         g = by_det[a]
         if not len(g):
             continue
         t_own = g["gps"].to_numpy(float)
-        if slide.index == 0:
-            t_slid = t_own
-        else:
-            t_slid = np.array([unwrap_time(t, -slide.shifts[a], span) for t in t_own])
-        keep = _in_segments(t_slid, slide.live)
-        for j in np.flatnonzero(keep):
+        slid = {}
+        for sl in slides:
+            t_slid = t_own if sl.index == 0 else np.array(
+                [unwrap_time(t, -sl.shifts[a], sl.span) for t in t_own])
+            slid[sl.index] = (t_slid, _in_segments(t_slid, sl.live))
+        # seeds in template order: a template's preparation serves all its seeds and slides
+        for j in np.argsort(g["template_index"].to_numpy(), kind="stable"):
             r = g.iloc[j]
             ti = int(r["template_index"])
-            row: dict[str, Any] = {"slide": slide.index, "gps": float(r["gps"]),
-                                   "slid_gps": float(t_slid[j]), "anchor_detector": a,
-                                   "template_index": ti, "template_id": tid[ti],
-                                   "on_box_edge": bool(edge[ti]) if edge is not None else False}
-            total = float(r["snr_reweighted"]) ** 2
-            _fill(row, a, float(r["gps"]), float(r["snr"]), float(r["snr_reweighted"]),
-                  float(r["chisq"]), int(r["chisq_dof"]), int(r["trigger_id"]))
-            ok = True
-            for d in dets:
-                if d == a:
+            for sl in slides:
+                t_slid, keep = slid[sl.index]
+                if not keep[j]:
                     continue
-                centre = (float(r["gps"]) if slide.index == 0
-                          else unwrap_time(float(t_slid[j]), slide.shifts[d], span))
-                half = windows[(a, d)]
-                pk = probes[d].peak(ti, centre - half, centre + half)
-                if pk is None:
-                    ok = False
-                    break
-                total += pk.snr_reweighted ** 2
-                _fill(row, d, pk.gps, pk.snr, pk.snr_reweighted, pk.chisq, pk.chisq_dof,
-                      _own_trigger(own[d], centre, half))
-            if not ok:
-                continue
-            row["network_snr"] = math.sqrt(total)
-            rows.append(row)
+                row: dict[str, Any] = {
+                    "slide": sl.index, "gps": float(r["gps"]), "slid_gps": float(t_slid[j]),
+                    "anchor_detector": a, "template_index": ti, "template_id": tid[ti],
+                    "on_box_edge": bool(edge[ti]) if edge is not None else False}
+                total = float(r["snr_reweighted"]) ** 2
+                _fill(row, a, float(r["gps"]), float(r["snr"]), float(r["snr_reweighted"]),
+                      float(r["chisq"]), int(r["chisq_dof"]), int(r["trigger_id"]))
+                ok = True
+                for d in dets:
+                    if d == a:
+                        continue
+                    centre = (float(r["gps"]) if sl.index == 0
+                              else unwrap_time(float(t_slid[j]), sl.shifts[d], sl.span))
+                    half = windows[(a, d)]
+                    pk = probes[d].peak(ti, centre - half, centre + half)
+                    if pk is None:
+                        ok = False
+                        break
+                    total += pk.snr_reweighted ** 2
+                    _fill(row, d, pk.gps, pk.snr, pk.snr_reweighted, pk.chisq, pk.chisq_dof,
+                          _own_trigger(own[d], centre, half))
+                if ok:
+                    row["network_snr"] = math.sqrt(total)
+                    rows.append(row)
+            bar.update(1)
+    bar.close()
     if not rows:
         return pd.DataFrame({c: pd.Series(dtype=object if c == "anchor_detector" else float)
                              for c in cols})
     ev = pd.DataFrame(rows)[cols]
-    ev = cluster_triggers(ev, cluster_window_s, column="network_snr", time_column="slid_gps")
+    ev = pd.concat([cluster_triggers(g, cluster_window_s, column="network_snr",
+                                     time_column="slid_gps")
+                    for _, g in ev.groupby("slide", sort=True)], ignore_index=True)
     for c in ["slide", "template_index"] + [f"{d}_trigger_id" for d in dets] + [
             f"{d}_chisq_dof" for d in dets]:
         ev[c] = ev[c].astype(np.int64)

@@ -59,7 +59,7 @@ KAISER_BETA: float = 9.5
 #: Start-time tolerance of the refinement, in samples.
 REFINE_TOL: float = 1e-4
 #: Memory budget of the per-detector cache of prepared templates (bytes).
-CACHE_BYTES: int = 384 * 2 ** 20
+CACHE_BYTES: int = 128 * 2 ** 20
 
 
 def fractional_delay_taps(x: float) -> tuple[int, np.ndarray]:

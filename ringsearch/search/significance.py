@@ -35,7 +35,7 @@ def far_from_counts(n_louder: np.ndarray, background_s: float) -> pd.DataFrame:
 
     Examples
     --------
-    >>> far_from_counts(np.array([0, 2]), YEAR_S)["far_per_year"].tolist()
+    >>> far_from_counts(np.array([0, 2]), YEAR_S)["far_per_year"].round(6).tolist()
     [1.0, 2.0]
     """
     if not background_s > 0:
@@ -96,7 +96,7 @@ def rate_at(statistic: np.ndarray, background: np.ndarray, background_s: float) 
 
     Examples
     --------
-    >>> rate_at(np.array([5.0, 9.0]), np.array([6.0, 7.0]), YEAR_S).tolist()
+    >>> rate_at(np.array([5.0, 9.0]), np.array([6.0, 7.0]), YEAR_S).round(6).tolist()
     [2.0, 0.0]
     """
     if not background_s > 0:

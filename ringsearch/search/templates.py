@@ -56,6 +56,24 @@ def template_samples(tau_s: Any, sample_rate: float) -> int:
     return int(math.ceil(DECAY_TIMES * float(np.max(tau_s)) * sample_rate))
 
 
+def one_template(f_hz: Any, tau_s: Any) -> tuple[np.ndarray, np.ndarray]:
+    """One template's mode frequencies and damping times as (1, K) arrays, checked.
+
+    Examples
+    --------
+    >>> [a.shape for a in one_template([250.0, 240.0], [0.004, 0.0013])]
+    [(1, 2), (1, 2)]
+    """
+    f = np.atleast_1d(np.asarray(f_hz, float)).reshape(1, -1)
+    tau = np.atleast_1d(np.asarray(tau_s, float)).reshape(1, -1)
+    if f.shape != tau.shape:
+        raise InputError("f_hz and tau_s of a template must have the same length.")
+    if not (np.all(np.isfinite(f)) and np.all(np.isfinite(tau)) and np.all(tau > 0)):
+        raise InputError("a template's frequencies and damping times must be finite, with "
+                         "positive damping times.")
+    return f, tau
+
+
 def basis_waveforms(f_hz: np.ndarray, tau_s: np.ndarray, n_samples: int, sample_rate: float,
                     offset_s: float | np.ndarray = 0.0) -> np.ndarray:
     """Sampled basis of templates, shape (..., 2K, n_samples), cut at DECAY_TIMES e-folds.
@@ -220,10 +238,7 @@ def local_template(f_hz: Any, tau_s: Any, response: np.ndarray, n: int, sample_r
     >>> lt.basis.shape, bool(np.allclose(lt.basis @ lt.basis.T, np.eye(2)))
     ((2, 4096), True)
     """
-    f = np.atleast_2d(np.asarray(f_hz, float))
-    tau = np.atleast_2d(np.asarray(tau_s, float))
-    if f.shape != tau.shape:
-        raise InputError("f_hz and tau_s of a template must have the same length.")
+    f, tau = one_template(f_hz, tau_s)
     prep = prepare_templates(f, tau, response, n, sample_rate, max_cond)
     if not prep.ok[0]:
         raise InputError(f"template refused: {prep.reason[0]}.")

@@ -77,7 +77,7 @@ import numpy as np
 import scipy.fft
 
 from ringsearch.errors import InputError
-from ringsearch.search.templates import LocalTemplate, local_grid, local_template
+from ringsearch.search.templates import LocalTemplate, local_grid, local_template, one_template
 
 #: Default number of frequency bands p.  Allen (2005) and the LIGO S5/S6 searches
 #: use p = 16 for long chirps; a damped sinusoid of quality factor a few spans a
@@ -265,14 +265,11 @@ def chisq_at(cond: Any, f_hz: Any, tau_s: Any, samples: Any, bins: int = DEFAULT
     --------
     >>> chi2, snr, dof = chisq_at(cond, [250.0], [0.004], [8192, 16384])  # doctest: +SKIP
     """
-    from ringsearch.search.correlate import data_arrays, filter_length, response_on
+    from ringsearch.search.correlate import data_arrays, local_pad, response_on
 
     vals, fs, _ = data_arrays(cond)
-    f = np.atleast_1d(np.asarray(f_hz, float))
-    tau = np.atleast_1d(np.asarray(tau_s, float))
-    if f.shape != tau.shape:
-        raise InputError("f_hz and tau_s of a template must have the same length.")
-    pad = filter_length(cond)
+    f, tau = one_template(f_hz, tau_s)
+    pad = local_pad(cond)
     n = local_grid(tau, fs, pad)
     resp = response_on(cond, n, fs)
     lt = local_template(f, tau, resp, n, fs, pad)
