@@ -91,9 +91,12 @@ def register(subparsers) -> None:
         description=textwrap.fill(
             "Search detector strain for black-hole ringdowns with a bank of Kerr templates "
             "carrying the (2,2,0..N) quasinormal modes: whiten the data, correlate every "
-            "template, maximise the SNR over all mode amplitudes and phases, cluster "
-            "triggers, find coincidences between detectors and rank them by false-alarm "
-            "rate from time slides (or, with one detector, from the data's own triggers).  "
+            "template, maximise the SNR over all mode amplitudes and phases, refine each "
+            "peak between samples, test it with a signal-consistency chi-squared, cluster "
+            "triggers, combine the detectors within their light-travel time and rank the "
+            "candidates by false-alarm rate from time slides (or, with one detector, from "
+            "the data's own triggers).  The same search runs inside every injection "
+            "campaign.  "
             "Masses are detector-frame solar masses, times GPS seconds, frequencies Hz.",
             width=79),
         epilog=_EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -118,8 +121,8 @@ def register(subparsers) -> None:
                    help="reuse a bank saved by an earlier search (its bank.parquet); "
                         "--mass, --spin and --min-match are then not used")
     p.add_argument("--snr-threshold", type=float, default=5.0, metavar="X",
-                   help="threshold on the projection SNR (dimensionless) for a trigger "
-                        "(default 5)")
+                   help="threshold on a peak's refined projection SNR (dimensionless) for "
+                        "a trigger in each detector (default 5)")
     p.add_argument("--slides", type=int, default=100, metavar="K",
                    help="time slides for the background (default 100, capped by the data)")
     p.add_argument("--slide-step", type=float, metavar="S",
