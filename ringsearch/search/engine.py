@@ -855,7 +855,8 @@ def _summary(res: SearchResult) -> dict:
         "bank": bank.summary(),
         "refused_templates": {d: res.refused[res.refused.detector == d]
                               .drop(columns="detector").to_dict("records") for d in dets},
-        "cluster_window_s": float(Search(cfg, bank=bank).cluster_window(bank)),
+        "cluster_window_s": float(cfg.cluster_window_s if cfg.cluster_window_s is not None
+                                  else default_cluster_window(bank)),
         "parameters": cfg.to_dict(),
         "amplitude_convention": ("h(t) = sum_n Re[A_n exp(-i 2 pi f_n (t - gps))] "
                                  "exp(-(t - gps)/tau_n), A_n = amp22n_re + i amp22n_im"),
