@@ -302,16 +302,17 @@ def _tukey_ramp(n: int) -> np.ndarray:
 def _apply_segments(x: np.ndarray, t0: float, fs: float, segs, taper_n: int) -> None:
     """In place: zero ``x`` outside ``segs`` and taper ``taper_n`` samples at their edges.
 
-    A sample is kept when its whole period ``[t_j, t_j + 1/fs)`` lies in a segment, which
-    is stricter than :func:`ringsearch.data.segments.mask_from_segments` (sample time in a
-    segment) when a segment ends between two samples.
+    A sample is kept when its whole period ``[t_j, t_j + 1/fs)`` lies in a segment
+    (:func:`ringsearch.data.segments.sample_range` with ``whole_periods``).
     """
+    from ringsearch.data.segments import sample_range
+
     n = x.size
     keep = np.zeros(n, dtype=bool)
     ramps = []
     for seg in segs:
-        a = max(0, int(math.ceil((float(seg[0]) - t0) * fs - 1e-6)))
-        b = min(n, int(math.floor((float(seg[1]) - t0) * fs + 1e-6)))
+        a, b = sample_range(seg, t0, fs, whole_periods=True)
+        a, b = max(0, a), min(n, b)
         if b <= a:
             continue
         keep[a:b] = True

@@ -135,9 +135,10 @@ def estimate_psd(strain: TimeSeries, seglen: float = 4.0, overlap: float | None 
     x = np.asarray(strain.value, dtype=np.float64)
     blocks = []  # (start, stop) sample ranges, each a whole number of Welch segments
     step = nper - nover
+    from ringsearch.data.segments import sample_range
+
     for seg in usable:
-        a = int(math.ceil((float(seg[0]) - t0) * fs - 1e-6))
-        b = int(math.floor((float(seg[1]) - t0) * fs + 1e-6))
+        a, b = sample_range(seg, t0, fs, whole_periods=True)
         if b - a < nper:
             continue
         # Blocks of at most 64 segments keep scipy's complex work arrays small; each

@@ -52,17 +52,29 @@ def segments_from_mask(mask: Any, t0: float, sample_rate: float) -> Any:
     return SegmentList(state.to_dqflag(round=False).active).coalesce()
 
 
-def sample_range(segment: Any, t0: float, sample_rate: float) -> tuple[int, int]:
+def sample_range(segment: Any, t0: float, sample_rate: float,
+                 whole_periods: bool = False) -> tuple[int, int]:
     """Sample indices ``[lo, hi)`` whose times lie in ``segment`` (no clipping to any length).
+
+    With ``whole_periods`` a sample counts only when its whole period
+    ``[t_j, t_j + 1/fs)`` lies in the segment (a stricter end when the
+    segment ends between two samples), as for data a segment must contain.
 
     Examples
     --------
-    >>> sample_range((10.5, 11.5), 10.0, 2.0)
+    >>> sample_range((10.5, 11.75), 10.0, 2.0)
+    (1, 4)
+    >>> sample_range((10.5, 11.75), 10.0, 2.0, whole_periods=True)
     (1, 3)
     """
     a, b = float(segment[0]), float(segment[1])
     lo = math.ceil((a - t0) * sample_rate - _EDGE_TOL) if math.isfinite(a) else -(2 ** 62)
-    hi = math.ceil((b - t0) * sample_rate - _EDGE_TOL) if math.isfinite(b) else 2 ** 62
+    if not math.isfinite(b):
+        hi = 2 ** 62
+    elif whole_periods:
+        hi = math.floor((b - t0) * sample_rate + _EDGE_TOL)
+    else:
+        hi = math.ceil((b - t0) * sample_rate - _EDGE_TOL)
     return int(lo), int(hi)
 
 
