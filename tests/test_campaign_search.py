@@ -131,6 +131,13 @@ def test_dask_staged_and_single_runs_are_identical(tmp_path):
                                           pd.read_parquet(tmp_path / other / name))
         for name in ("efficiency.csv", "threshold.csv"):
             assert (tmp_path / "one" / name).read_text() == (tmp_path / other / name).read_text()
+    # the banks were placed once, in the submitting process, and every chunk loaded them
+    from ringsearch.campaign.worker import campaign_bank
+    from ringsearch.search.bank import Bank
+
+    for n in (0, 1):
+        saved = Bank.load(tmp_path / "one" / "shared" / f"bank_N{n}.parquet")
+        pd.testing.assert_frame_equal(saved.table, campaign_bank(spec.config, n).table)
     th = pd.read_csv(tmp_path / "one" / "threshold.csv")
     assert (th["kind"] == "far").all() and (th["background_years"] > 0).all()
     found = pd.read_parquet(tmp_path / "one" / "found.parquet")

@@ -16,6 +16,8 @@ Output folder layout::
     plan/injections.parquet  every drawn injection (true parameters)
     chunks/NNNNNN.<table>.parquet  a finished chunk's tables ...
     chunks/NNNNNN.done     ... and its completion marker (written last)
+    shared/                what every chunk reuses, written once (the worker's
+                           ``share`` hook: e.g. its template banks)
     injections.parquet, found.parquet, background.parquet, efficiency.csv, ...
 
 Resume: a chunk counts as finished only when its ``.done`` marker exists, so
@@ -52,6 +54,9 @@ DEFAULT_WORKER = "ringsearch.campaign.worker:run_chunk"
 SCHEDULER_TIMEOUT_S = 10.0
 
 MANIFEST = "campaign.json"
+
+#: Folder (inside a campaign's output) of what every chunk shares, written once.
+SHARED = "shared"
 
 
 def resolve_worker(worker: Worker | str | None) -> Worker:
@@ -254,8 +259,13 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         fn = resolve_worker(worker)  # fail early on a bad dotted path
         out = Path(out)
         # the worker's own up-front checks (e.g. banks), before any chunk runs
-        hook = getattr(sys.modules.get(fn.__module__), "prepare", None)
+        module = sys.modules.get(fn.__module__)
+        hook = getattr(module, "prepare", None)
         prepare_output(spec, out, check=hook if callable(hook) else None)
+        # fixed costs paid once: the worker may write what every chunk shares (e.g. its
+        # template banks) into DIR/shared and tell the chunks where it is
+        share = getattr(module, "share", None)
+        shared = share(spec.config, out / SHARED) if callable(share) else None
         chunks, injections = load_plan(out)
         todo = [c for c in chunks.to_dict("records") if not chunk_done(out, c["chunk"])]
         if max_chunks is not None:
@@ -263,7 +273,8 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         groups = dict(tuple(injections.groupby("chunk")))
         bar = _progress(len(chunks), len(chunks) - len(pending_chunks(out)), progress)
         try:
-            args = [(spec.config, c, groups[c["chunk"]].reset_index(drop=True)) for c in todo]
+            args = [(spec.config, {**c, "shared": shared} if shared else c,
+                     groups[c["chunk"]].reset_index(drop=True)) for c in todo]
             if client is not None:
                 _run_dask(client, args, worker, out, bar)
             elif workers == 1 or len(args) <= 1:

@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import math
 from functools import lru_cache
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -159,13 +160,17 @@ def chunk_psds(config: dict, strains: dict, engine) -> dict:
 
 
 def model_psd(config: dict):
-    """The synthetic data's model PSD on the grid of ``data.psd_seglen_s``."""
+    """The synthetic data's model PSD on the grid of ``data.psd_seglen_s`` (computed once
+    per process)."""
+    data = config["data"]
+    return _model_psd(data["psd"], float(data["psd_seglen_s"]), float(data["sample_rate"]))
+
+
+@lru_cache(maxsize=4)
+def _model_psd(name: str, seglen: float, fs: float):
     from ringsearch.data.noise import resolve_psd
 
-    data = config["data"]
-    fs = data["sample_rate"]
-    return resolve_psd(data["psd"], np.fft.rfftfreq(int(round(data["psd_seglen_s"] * fs)),
-                                                     1.0 / fs))
+    return resolve_psd(name, np.fft.rfftfreq(int(round(seglen * fs)), 1.0 / fs))
 
 
 # --------------------------------------------------------------------------- overtone evidence
@@ -267,21 +272,49 @@ def reference_psd(config: dict):
     return estimate_psd(strain, seglen=data["psd_seglen_s"], exclude=data["avoid"] or None)
 
 
-def campaign_bank(config: dict, n_overtones: int):
+def share(config: dict, folder: Path) -> dict:
+    """Write what every chunk reuses into ``folder`` once; return where it is.
+
+    The template bank of each overtone count is placed (or loaded) here, in the
+    submitting process, and saved as ``bank_N<n>.parquet``; every worker
+    process then loads it instead of placing it again.  A resumed campaign
+    finds the files and reuses them.
+
+    Examples
+    --------
+    >>> share(spec.config, Path("out/quick/shared"))  # doctest: +SKIP
+    {'banks': {'0': 'out/quick/shared/bank_N0.parquet', ...}}
+    """
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    banks = {}
+    for n in template_overtones(config):
+        path = folder / f"bank_N{n}.parquet"
+        if not path.exists():
+            campaign_bank(config, n).save(path)
+        banks[str(n)] = str(path)
+    return {"banks": banks}
+
+
+def campaign_bank(config: dict, n_overtones: int, shared: dict | None = None):
     """The template bank for N overtones (cached per process: every chunk shares it).
 
-    ``search.bank`` is loaded (its overtone count must be N); otherwise the
-    bank is placed over ``search.mass``/``search.spin`` (a single point when
-    the box is one).
+    With ``shared`` (from :func:`share`) the bank saved in the campaign folder
+    is loaded.  Otherwise ``search.bank`` is loaded (its overtone count must be
+    N), or the bank is placed over ``search.mass``/``search.spin`` (a single
+    point when the box is one).
     """
     s = config["search"]
+    path = ((shared or {}).get("banks") or {}).get(str(n_overtones))
     key = (n_overtones, tuple(s["mass"]), tuple(s["spin"]), s["min_match"],
            config["data"]["f_low"], f_high_of(config), config["campaign"]["seed"],
-           s.get("bank"), s.get("bank_sha256"))
+           s.get("bank"), s.get("bank_sha256"), path)
     if key not in _BANKS:
         from ringsearch.search.bank import Bank
 
-        if s.get("bank"):
+        if path is not None:
+            bank = Bank.load(path)
+        elif s.get("bank"):
             bank = Bank.load(s["bank"])
             if bank.n_overtones != n_overtones:
                 raise InputError(f"'search.bank' = {s['bank']} was built for "
@@ -428,7 +461,9 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     f_high = f_high_of(config)
     raw = chunk_strain(config, chunk)
     counts = template_overtones(config)
-    first = Search(search_config(config, counts[0]), bank=campaign_bank(config, counts[0]))
+    shared = chunk.get("shared")
+    first = Search(search_config(config, counts[0]),
+                   bank=campaign_bank(config, counts[0], shared))
     psds = chunk_psds(config, raw, first)
     sources, inj_table = make_sources(injections, psds, fs, data["f_low"], f_high)
     injected = {det: (inject(raw[det][0], sources, det), raw[det][1]) for det in dets}
@@ -440,7 +475,7 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     found, cand_rows, bg_rows, live_rows = [], [], [], []
     conds = None
     for n_tpl in counts:
-        bank = campaign_bank(config, n_tpl)
+        bank = campaign_bank(config, n_tpl, shared)
         engine = Search(search_config(config, n_tpl), bank=bank)
         if conds is None:  # the conditioning does not depend on the templates
             conds = engine.condition(injected, psds=psds)
