@@ -26,6 +26,7 @@ import tomllib
 from pathlib import Path
 
 import pandas as pd
+from _bench import Figures, add_options
 
 from ringsearch.campaign import run_campaign, spec_from_dict
 
@@ -68,14 +69,17 @@ def main(argv: list[str] | None = None) -> int:
                         help="numbers of injections per run (default 60 120)")
     parser.add_argument("--workers", type=int, nargs="+", default=[1, 2],
                         help="worker counts (default 1 2)")
-    parser.add_argument("--json", type=Path, help="also write the results here")
+    add_options(parser)
     args = parser.parse_args(argv)
     examples = [ROOT / "injections" / "quick.toml"]
+    if args.smoke:
+        args.counts = [12]
     open_data = ROOT / "injections" / "gw150914.toml"
     try:
         spec_from_dict(tomllib.loads(open_data.read_text()), origin=str(open_data),
                        base=open_data.parent)
-        examples.append(open_data)
+        if not args.smoke:
+            examples.append(open_data)
     except ValueError as exc:
         print(f"skipping the open-data example: {exc}", file=sys.stderr)
     rows = []
@@ -89,15 +93,16 @@ def main(argv: list[str] | None = None) -> int:
     table = pd.DataFrame(rows)
     print()
     print(table.to_string(index=False))
-    target = 10_000
-    for ex, g in table.groupby("example"):
-        big = g[g["injections"] == g["injections"].max()]
-        best = big.loc[big["injections_per_cpu_s"].idxmax()]
-        print(f"\n{ex}: {best.injections_per_cpu_s:.2f} injections per CPU-second -> "
-              f"{target / best.injections_per_cpu_s / 2 / 60:.0f} min for {target} injections "
-              f"on 2 cores with this campaign's bank ({best.templates} templates).")
-    if args.json:
-        args.json.write_text(json.dumps(rows, indent=2))
+    out = Figures("campaign examples: injections per CPU second, 1 and 2 local workers")
+    for row in rows:
+        tag = f"{row['example']}_{row['injections']}_w{row['workers']}"
+        out.add(f"{tag}_inj_per_cpu_s", row["injections_per_cpu_s"], "1/CPU s",
+                f"{row['example']}, {row['injections']} injections, {row['workers']} "
+                f"worker(s): injections per CPU second")
+        out.add(f"{tag}_wall_s", row["wall_s"], "s",
+                f"{row['example']}, {row['injections']} injections, {row['workers']} "
+                f"worker(s): wall time")
+    out.emit(args)
     return 0
 
 

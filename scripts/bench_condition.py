@@ -7,15 +7,16 @@ generating the synthetic noise.  Not a test: numbers depend on the machine.
 Usage::
 
     .venv/bin/python scripts/bench_condition.py [--duration 4096] [--sample-rate 4096]
+        [--json F] [--smoke]
 """
 
 from __future__ import annotations
 
 import argparse
-import json
-import resource
 import time
 import tracemalloc
+
+from _bench import Figures, add_options, peak_rss_mb
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -23,8 +24,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--duration", type=float, default=4096.0, help="seconds of strain")
     parser.add_argument("--sample-rate", type=float, default=4096.0, help="Hz")
     parser.add_argument("--seed", type=int, default=1)
-    parser.add_argument("--json", action="store_true", help="print one JSON object")
+    add_options(parser)
     args = parser.parse_args(argv)
+    if args.smoke:
+        args.duration = 64.0
 
     from ringsearch.data.condition import condition
     from ringsearch.data.noise import gaussian_noise
@@ -38,32 +41,23 @@ def main(argv: list[str] | None = None) -> int:
     tracemalloc.start()
     c0 = time.process_time()
     w0 = time.perf_counter()
-    cond = condition(strain)
+    condition(strain)
     cond_cpu = time.process_time() - c0
     cond_wall = time.perf_counter() - w0
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
 
-    result = {
-        "duration_s": args.duration,
-        "sample_rate_hz": args.sample_rate,
-        "input_mib": strain.value.nbytes / 2**20,
-        "noise_cpu_s": round(noise_cpu, 3),
-        "noise_wall_s": round(noise_wall, 3),
-        "condition_cpu_s": round(cond_cpu, 3),
-        "condition_wall_s": round(cond_wall, 3),
-        "data_s_per_cpu_s": round(args.duration / cond_cpu, 1),
-        "condition_peak_traced_mib": round(peak / 2**20, 1),
-        "process_max_rss_mib": round(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
-                                     1),
-        "analysed_s": cond.analysed_seconds,
-        "gates": len(cond.gates),
-    }
-    if args.json:
-        print(json.dumps(result))
-    else:
-        for key, value in result.items():
-            print(f"{key:28s} {value}")
+    out = Figures(f"conditioning {args.duration:g} s of {args.sample_rate:g} Hz strain")
+    out.add("noise_cpu_s", noise_cpu, "CPU s", "synthetic noise")
+    out.add("condition_cpu_s", cond_cpu, "CPU s", "conditioning (PSD, whitening, gates)")
+    out.add("condition_wall_s", cond_wall, "s", "conditioning (wall)")
+    out.add("data_s_per_cpu_s", args.duration / cond_cpu, "s/CPU s",
+            "seconds of data conditioned per CPU second")
+    out.add("condition_peak_traced_mib", peak / 2**20, "MiB", "peak traced memory while "
+            "conditioning")
+    out.add("peak_rss_mb", peak_rss_mb(), "MB", "peak resident memory of the process")
+    out.add("noise_wall_s", noise_wall, "s", "synthetic noise (wall)")
+    out.emit(args)
     return 0
 
 

@@ -6,7 +6,7 @@ direct Leaver solve.  Timing lives here, never in the tests.
 
 Usage::
 
-    .venv/bin/python scripts/bench_qnm.py [--pairs 1000000] [--repeat 3]
+    .venv/bin/python scripts/bench_qnm.py [--pairs 1000000] [--repeat 3] [--json F] [--smoke]
 """
 
 from __future__ import annotations
@@ -16,6 +16,7 @@ import sys
 import time
 
 import numpy as np
+from _bench import Figures, add_options
 
 from ringsearch.physics import leaver, qnm
 
@@ -33,7 +34,10 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--pairs", type=int, default=1_000_000)
     p.add_argument("--repeat", type=int, default=3)
+    add_options(p)
     args = p.parse_args(argv)
+    if args.smoke:
+        args.pairs, args.repeat = 10_000, 1
     rng = np.random.default_rng(12345)
     mass = rng.uniform(5.0, 500.0, args.pairs)
     spin = rng.uniform(0.0, 0.99, args.pairs)
@@ -54,10 +58,13 @@ def main(argv: list[str] | None = None) -> int:
     t0 = time.perf_counter()
     leaver.solve_at(2, 2, 0, 0.69, 0.528 - 0.081j)
     t_d = time.perf_counter() - t0
-    print(f"kerr_omega, {args.pairs} spins x {len(modes)} overtones: {t_w:.3f} s "
-          f"({t_w / (args.pairs * len(modes)) * 1e9:.1f} ns per value)")
-    print(f"mode_f_tau, {args.pairs} (mass, spin) x {len(modes)} overtones: {t_f:.3f} s")
-    print(f"one direct Leaver solve of (2,2,0) at spin 0.69: {t_d * 1e3:.1f} ms")
+    out = Figures(f"QNM interpolant, {args.pairs} spins x {len(modes)} overtones")
+    out.add("kerr_omega_s", t_w, "s", "kerr_omega for every spin and overtone (best of repeats)")
+    out.add("kerr_omega_ns_per_value", t_w / (args.pairs * len(modes)) * 1e9, "ns",
+            "kerr_omega per value")
+    out.add("mode_f_tau_s", t_f, "s", "mode_f_tau for every (mass, spin) and overtone")
+    out.add("leaver_solve_ms", t_d * 1e3, "ms", "one direct Leaver solve of (2,2,0)")
+    out.emit(args)
     return 0
 
 

@@ -1,32 +1,43 @@
-"""Benchmark the ringdown search: throughput, ratio to the bare FFT floor, peak memory.
+"""Benchmark the ringdown search against FFT floors and a naive filter, side by side.
 
 Searches synthetic Gaussian noise (design PSD) of two detectors with a bank of
-about a thousand templates and reports
+about a thousand templates (N = 0 by default) and reports, all measured in
+this one process:
 
-* throughput = templates x seconds of data / CPU second of the matched filter;
-* the ratio of the filter's CPU time to the bare FFT time of the same
-  correlations (one inverse FFT per basis function per chunk, plus the forward
-  FFTs of the templates), timed in the same run on the same machine;
-* the CPU cost of refining every peak above threshold between samples and
-  evaluating the signal-consistency veto there, relative to the filter, on
-  the noise and with a loud injected ringdown (which makes many peaks);
-* the wall time of the whole search (bank placement, filter, veto,
-  coincidence, time slides) and the peak resident memory.
+* the full-series filter (peak finding, one detector) in CPU seconds;
+* the FFT floors: one complex inverse FFT of the chunk length per mode pair,
+  per template, per chunk (scipy.fft, one worker), in complex128 and
+  complex64, and the filter's ratio to each;
+* a naive baseline: one numpy FFT correlation per basis function and template,
+  redoing the data transform each time (timed on 40 templates, scaled to the
+  bank), and its ratio to the filter;
+* the per-detector triggers (filter + sub-sample refinement + veto), in noise
+  and with a loud ringdown in the data;
+* the wall time of the whole two-detector search (coincidences, time slides)
+  and the peak resident memory.
 
-Run: ``python scripts/bench_search.py [--duration 32] [--overtones 0] [--min-match 0.995]``.
+Run: ``python scripts/bench_search.py [--duration 32] [--overtones 0]
+[--min-match 0.995] [--json out.json] [--smoke]``.
 """
 
 from __future__ import annotations
 
 import argparse
-import resource
+import copy
 import time
 
 import numpy as np
 import scipy.fft
+from _bench import Figures, add_options, peak_rss_mb
 
 
-def main() -> int:
+def _cpu(fn) -> float:
+    t = time.process_time()
+    fn()
+    return time.process_time() - t
+
+
+def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--duration", type=float, default=32.0, help="seconds of data (default 32)")
     ap.add_argument("--sample-rate", type=float, default=4096.0)
@@ -34,97 +45,106 @@ def main() -> int:
     ap.add_argument("--min-match", type=float, default=0.995,
                     help="bank minimal match (default 0.995: ~1000 templates for N = 0)")
     ap.add_argument("--seed", type=int, default=1)
-    ap.add_argument("--veto-bins", type=int, default=8, help="pieces of the veto (default 8)")
-    args = ap.parse_args()
+    add_options(ap)
+    args = ap.parse_args(argv)
+    if args.smoke:
+        args.duration, args.sample_rate, args.min_match = 8.0, 2048.0, 0.9
 
     from ringsearch.data.condition import condition
     from ringsearch.data.noise import gaussian_noise
     from ringsearch.search.bank import Bank, qnm_f_tau
     from ringsearch.search.correlate import filter_length, filter_peaks, plan_chunks
     from ringsearch.search.engine import Search, _combined_psd
+    from ringsearch.search.templates import basis_waveforms
 
     conds = {}
     for i, det in enumerate(("H1", "L1")):
         ts = gaussian_noise("design", args.duration, args.sample_rate, args.seed + i,
                             gps_start=1e9, detector=det)
         conds[det] = condition(ts)
-
-    c_wall, c_cpu = time.perf_counter(), time.process_time()
-    f_hi = min(c.f_high for c in conds.values())
-    bank = Bank.from_box((20.0, 200.0), (0.0, 0.99), args.overtones, args.min_match,
-                         psd=_combined_psd(conds), f_low=20.0, f_high=f_hi, seed=args.seed)
-    bank_cpu = time.process_time() - c_cpu
-    print(f"bank: {len(bank)} templates (N = {args.overtones}, MM = {args.min_match}) "
-          f"placed in {bank_cpu:.2f} CPU s")
-
-    # the full-series filter alone (peak finding), one detector
     c = conds["H1"]
+    fs = float(c.sample_rate)
+    f_hi = min(c.f_high for c in conds.values())
+    box = ((50.0, 100.0), (0.3, 0.9)) if args.smoke else ((20.0, 200.0), (0.0, 0.99))
+    w_bank = time.perf_counter()
+    bank = Bank.from_box(*box, args.overtones, args.min_match, psd=_combined_psd(conds),
+                         f_low=20.0, f_high=f_hi, seed=args.seed)
+    bank_wall = time.perf_counter() - w_bank
+    out = Figures(f"search: {len(bank)} templates (N = {args.overtones}), "
+                  f"{args.duration:g} s at {fs:g} Hz, two detectors")
+    out.add("templates", len(bank), "", "templates in the bank")
+    out.add("bank_wall_s", bank_wall, "s", "bank placement with the data's PSD (wall)")
+
     window = float(np.clip(bank.duration_s.max(), 0.05, 1.0))
-    t_cpu = time.process_time()
-    filter_peaks(c, bank.f_hz, bank.tau_s, 5.0 * 0.95, window / 2)
-    filt_cpu = time.process_time() - t_cpu
+    filt = out.add("filter_cpu_s", _cpu(lambda: filter_peaks(
+        c, bank.f_hz, bank.tau_s, 4.75, window / 2)), "CPU s",
+        "full-series filter, one detector")
 
-    # triggers with refinement and the veto (the engine's per-detector step)
-    def triggers_cpu(cond) -> float:
-        search = Search(bank=bank, veto_bins=args.veto_bins)
+    # FFT floors: one complex inverse FFT of the chunk length per mode pair, template, chunk
+    plan = plan_chunks(c.whitened.size, fs, float(bank.duration_s.max()), filter_length(c))
+    n_ffts = len(bank) * bank.n_modes * plan.n_chunks
+    batch = max(1, min(64, n_ffts))
+    rng = np.random.default_rng(0)
+    floors = {}
+    for name, dtype in (("floor128", np.complex128), ("floor64", np.complex64)):
+        x = (rng.standard_normal((batch, plan.n_fft))
+             + 1j * rng.standard_normal((batch, plan.n_fft))).astype(dtype)
+        scipy.fft.ifft(x[:1], axis=-1, workers=1)  # plan / warm up
+        reps = int(np.ceil(n_ffts / batch))
+        floors[name] = _cpu(lambda x=x, reps=reps: [scipy.fft.ifft(x, axis=-1, workers=1)
+                                                   for _ in range(reps)]) * n_ffts / (
+            reps * batch)
+    f128 = out.add("floor128_cpu_s", floors["floor128"], "CPU s",
+                   "FFT floor, complex128 (one inverse FFT per mode, template, chunk)")
+    f64 = out.add("floor64_cpu_s", floors["floor64"], "CPU s", "FFT floor, complex64")
+    out.add("filter_over_floor128", filt / f128, "x", "filter / complex128 floor")
+    out.add("filter_over_floor64", filt / f64, "x", "filter / complex64 floor")
+
+    # naive baseline: numpy FFT correlation per basis function, data transform redone
+    vals = np.asarray(c.whitened.value, float)
+    n = int(scipy.fft.next_fast_len(vals.size + int(bank.duration_s.max() * fs) + 1))
+    resp = c.filter_response(np.fft.rfftfreq(n, 1 / fs))
+    sub = np.linspace(0, len(bank) - 1, min(40, len(bank))).astype(int)
+
+    def naive():
+        for i in sub:
+            u = basis_waveforms(bank.f_hz[i], bank.tau_s[i], int(bank.duration_s[i] * fs) + 2,
+                                fs)
+            for row in u:
+                np.fft.irfft(np.fft.rfft(vals, n) * np.conj(np.fft.rfft(row, n) * resp), n)
+
+    naive_cpu = out.add("naive_cpu_s", _cpu(naive) * len(bank) / sub.size, "CPU s",
+                        "naive numpy correlation per template (40 timed, scaled)")
+    out.add("naive_over_filter", naive_cpu / filt, "x", "naive / filter")
+
+    # triggers: filter + refinement + veto
+    def triggers(cond):
+        search = Search(bank=bank)
         probes = search.probes({"H1": cond}, bank)
-        t0 = time.process_time()
-        search.triggers({"H1": cond}, bank, probes)
-        return time.process_time() - t0
+        return _cpu(lambda: search.triggers({"H1": cond}, bank, probes))
 
-    veto_total = triggers_cpu(c)
-    veto_cpu = veto_total - filt_cpu
-    # the same with a loud ringdown (SNR 20, 65 Msun, spin 0.7) in the data
-    import copy
-
+    trig = out.add("triggers_cpu_s", triggers(c), "CPU s",
+                   "triggers of one detector (filter, refinement, veto), noise")
+    out.add("refine_veto_over_filter", (trig - filt) / filt, "x",
+            "refinement + veto / filter, noise")
     f_inj, tau_inj = qnm_f_tau(np.array([65.0]), np.array([0.7]), 0)
     loud = copy.copy(c)
-    w = np.asarray(c.whitened.value, float).copy()
-    fs = float(c.sample_rate.value if hasattr(c.sample_rate, "value") else c.sample_rate)
-    tt = np.arange(w.size) / fs - args.duration / 2
+    tt = np.arange(vals.size) / fs - args.duration / 2
     ring = np.where(tt >= 0, np.exp(-np.clip(tt, 0, None) / tau_inj[0])
                     * np.cos(2 * np.pi * f_inj[0] * tt), 0.0)
-    ring *= 20.0 / np.sqrt(np.sum(ring ** 2))  # already white: unit-norm x SNR
+    ring *= 20.0 / np.sqrt(np.sum(ring ** 2))  # already white: unit norm x SNR
     loud.whitened = c.whitened.copy()
-    loud.whitened.value[:] = w + ring
-    veto_loud = triggers_cpu(loud) - filt_cpu
+    loud.whitened.value[:] = vals + ring
+    trig_loud = triggers(loud)
+    out.add("refine_veto_over_filter_loud", (trig_loud - filt) / filt, "x",
+            "refinement + veto / filter, with a loud (SNR 20) ringdown")
 
-    # FFT floor: the same transforms, nothing else
-    n = c.whitened.size
-    plan = plan_chunks(n, float(c.sample_rate), float(bank.duration_s.max()), filter_length(c))
-    k2 = 2 * bank.n_modes
-    rng = np.random.default_rng(0)
-    batch = max(1, min(256, 4_000_000 // (k2 * plan.n_fft)))
-    x = rng.standard_normal((batch, k2, plan.n_fft))
-    xs = scipy.fft.rfft(x, axis=-1)
-    n_batches = int(np.ceil(len(bank) / batch))
-    t_cpu = time.process_time()
-    for _ in range(n_batches):
-        scipy.fft.rfft(x, axis=-1)  # template spectra
-        for _ in range(plan.n_chunks):
-            scipy.fft.irfft(xs, plan.n_fft, axis=-1)  # correlations
-    fft_cpu = time.process_time() - t_cpu
-
-    # whole search, two detectors, with the same bank
     t_wall = time.perf_counter()
-    res = Search(bank=bank, veto_bins=args.veto_bins).run(conds)
-    search_wall = time.perf_counter() - t_wall
-    total_wall = time.perf_counter() - c_wall
-    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-
-    thr = len(bank) * args.duration / filt_cpu
-    print(f"matched filter, one detector, {args.duration:g} s at {args.sample_rate:g} Hz: "
-          f"{filt_cpu:.2f} CPU s ({plan.n_chunks} chunk(s) of {plan.n_fft} samples)")
-    print(f"throughput: {thr:,.0f} template-seconds of data per CPU second")
-    print(f"FFT floor: {fft_cpu:.2f} CPU s -> filter / floor = {filt_cpu / fft_cpu:.2f}")
-    print(f"refinement + veto ({args.veto_bins} time slices), noise only: {veto_cpu:.2f} CPU s "
-          f"({veto_cpu / filt_cpu:.0%} of the filter; triggers in all {veto_total:.2f} CPU s)")
-    print(f"refinement + veto with a loud ringdown (SNR 20) in the data: {veto_loud:.2f} CPU s "
-          f"({veto_loud / filt_cpu:.0%} of the filter)")
-    print(f"full search (2 detectors, coincidence, "
-          f"{res.extra.get('n_slides', 0)} slides): {search_wall:.2f} s wall; "
-          f"with bank placement {total_wall:.2f} s wall")
-    print(f"peak resident memory: {peak_mb:.0f} MB")
+    res = Search(bank=bank).run(conds)
+    out.add("search_wall_s", time.perf_counter() - t_wall, "s",
+            f"whole two-detector search ({res.extra.get('n_slides', 0)} slides, wall)")
+    out.add("peak_rss_mb", peak_rss_mb(), "MB", "peak resident memory")
+    out.emit(args)
     return 0
 
 
