@@ -117,7 +117,7 @@ def test_probe_reproduces_search_triggers_at_requested_times():
     bank = Bank.from_box((50.0, 80.0), (0.5, 0.8), 0, 0.95, f_high=900.0, seed=2)
     trig = search_triggers(cond, bank, 7.0, veto=True)
     assert len(trig) >= 4
-    probe = Probe(cond, bank, veto_bins=8, mismatch=mismatch_allowance(0.95))
+    probe = Probe(cond, bank.f_hz, bank.tau_s, veto_bins=8, mismatch=mismatch_allowance(0.95))
     for r in trig.itertuples():
         pk = probe.peak(r.template_index, r.gps - 0.003, r.gps + 0.003)
         assert pk.gps == pytest.approx(r.gps, abs=1e-3 / FS)

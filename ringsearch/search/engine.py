@@ -628,11 +628,11 @@ class Search:
         cfg = self.config
         mm = float(bank.meta.get("min_match", cfg.min_match))
         mismatch = mismatch_allowance(mm) if cfg.veto else 0.0
-        dets = list(conds)
-        widest = max(coincidence_windows(dets, cfg.tolerance_s).values(), default=0.0)
-        return {d: Probe(c, bank, veto_bins=cfg.veto_bins if cfg.veto else None,
-                         veto_domain=cfg.veto_domain, mismatch=mismatch,
-                         window_s=2 * widest + 0.01) for d, c in conds.items()}
+        f, tau, longest = bank.f_hz, bank.tau_s, float(bank.duration_s.max())
+        return {d: Probe(c, f, tau, longest_s=longest,
+                         veto_bins=cfg.veto_bins if cfg.veto else None,
+                         veto_domain=cfg.veto_domain, mismatch=mismatch)
+                for d, c in conds.items()}
 
     def triggers(self, conds: Mapping[str, Any], bank: Bank, probes: Mapping[str, Probe],
                  progress: bool = False) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
@@ -657,7 +657,7 @@ class Search:
                 "detector": d, "template_id": bank.table.template_id.to_numpy()[bad.index],
                 "cond_gram": bad.cond_gram.to_numpy(float),
                 "reason": bad.refused.to_numpy(str)}))
-            tables.append(detector_triggers(probes[d], peaks, thr, window,
+            tables.append(detector_triggers(probes[d], peaks, bank, thr, window,
                                             tmpl.cond_gram.to_numpy(float), edge))
         trig = pd.concat(tables, ignore_index=True)
         trig = trig.sort_values(["gps", "detector"], kind="stable").reset_index(drop=True)

@@ -1,13 +1,24 @@
 """Templates evaluated at requested start times: sub-sample refinement, amplitudes and the veto.
 
-A :class:`Probe` holds one detector's conditioned data and a bank.  Given a
-template and a start sample (or a window of start times) it returns a
-:class:`Peak`: the refined start time between samples, the projection SNR
+A :class:`Probe` holds one detector's conditioned data and a bank's modes.
+Given a template and a start sample (or a window of start times) it returns
+a :class:`Peak`: the refined start time between samples, the projection SNR
 there, the maximum-likelihood mode amplitudes, the signal-consistency
 chi-squared and the re-weighted SNR.  Every number the search reports about
 a trigger, a coincident candidate or a time-slide event comes from here, so
 the full-series search (which only *finds* peaks,
 :mod:`ringsearch.search.correlate`) and an evaluation at given times agree.
+
+Doubly whitened data
+--------------------
+The probe filters the whitened data once more with the whitening response H
+(``x = H w``, one FFT of the whole series).  Because H is real and
+symmetric, ``<d, u> = sum_j w[j] (h * u)[j] = sum_j x[j] u[j]``: the inner
+product with a template is a dot product of x with the *raw* sampled
+template over the template's own support (a few to a few hundred samples),
+with no whitening filter to carry along.  Only the template's Gram matrix
+and the veto's covariances need whitened inner products, computed once per
+template on a short FFT grid (:func:`ringsearch.search.templates.local_grid`).
 
 Sub-sample start times
 ----------------------
@@ -39,7 +50,13 @@ from scipy.special import i0
 
 from ringsearch.errors import InputError
 from ringsearch.search.correlate import data_arrays, local_pad, response_on, start_mask
-from ringsearch.search.templates import LocalTemplate, local_grid, local_template
+from ringsearch.search.templates import (
+    MAX_COND,
+    basis_waveforms,
+    local_grid,
+    prepare_templates,
+    template_samples,
+)
 from ringsearch.search.veto import (
     DEFAULT_BINS,
     DEFAULT_DOMAIN,
@@ -124,58 +141,85 @@ class Peak:
 
 
 class _Prepared:
-    __slots__ = ("local", "veto", "conj_spec", "nbytes")
+    __slots__ = ("basis", "cinv", "to_amplitude", "veto", "cond", "nbytes")
 
-    def __init__(self, local: LocalTemplate, veto: VetoBasis | None, fft_len: int):
-        self.local = local
+    def __init__(self, basis: np.ndarray, cinv: np.ndarray, veto: VetoBasis | None,
+                 cond: float):
+        self.basis = np.ascontiguousarray(basis)  # (2K, L) raw sampled basis
+        self.cinv = cinv  # C^{-1}: y = cinv @ z
+        self.to_amplitude = np.ascontiguousarray(cinv.T @ cinv)  # G^{-1}: a = G^{-1} z
         self.veto = veto
-        # conjugate spectra of the basis on a grid long enough for a window of start times
-        self.conj_spec = np.conj(scipy.fft.rfft(local.basis, fft_len, axis=-1))
-        self.nbytes = (local.basis.nbytes + self.conj_spec.nbytes
-                       + (veto.weights.nbytes if veto is not None else 0))
+        self.cond = cond
+        self.nbytes = self.basis.nbytes + (veto.weights.nbytes if veto is not None else 0)
+
+
+def doubly_whitened(cond: Any) -> np.ndarray:
+    """The whitened data filtered once more by the whitening response: ``x = H w``.
+
+    Then ``<d, u> = sum_j x[j] u[j]`` for a template u sampled on the data's
+    samples (H is real and symmetric).  One zero-padded FFT of twice the data
+    length, so the filter's ringing does not wrap around.
+
+    Examples
+    --------
+    >>> x = doubly_whitened(cond)  # doctest: +SKIP
+    """
+    vals, fs, _ = data_arrays(cond)
+    n = scipy.fft.next_fast_len(2 * vals.size, real=True)
+    spec = scipy.fft.rfft(vals, n)
+    spec *= response_on(cond, n, fs)
+    return scipy.fft.irfft(spec, n)[:vals.size]
 
 
 class Probe:
-    """Evaluate the templates of a bank at requested start times in one detector's data.
+    """Evaluate templates at requested start times in one detector's data.
 
     Parameters
     ----------
     cond : ConditionedData
         One detector's conditioned data (see :mod:`ringsearch.data.condition`).
-    bank : Bank
-        The templates; they are referred to by row index.
+    f_hz, tau_s : array (n_templates, K)
+        The templates' mode frequencies (Hz) and damping times (s), e.g. a
+        bank's ``f_hz``/``tau_s``; templates are referred to by row index.
+    longest_s : float, optional
+        Longest template the valid start times must hold (default: the
+        longest of these templates).
     veto_bins : int or None
         Pieces of the chi-squared (None: no veto, ``snr_reweighted = snr``).
     veto_domain : {"time", "frequency"}
         Split of the veto.
     mismatch : float
         The veto's mismatch allowance (see :func:`ringsearch.search.veto.reweighted_snr`).
-    window_s : float
-        Longest window of start times :meth:`peak` will be asked for (sets the
-        FFT length of the cached template spectra).
 
     Examples
     --------
-    >>> probe = Probe(cond, bank, veto_bins=8)  # doctest: +SKIP
+    >>> probe = Probe(cond, bank.f_hz, bank.tau_s, veto_bins=8)  # doctest: +SKIP
     >>> pk = probe.peak(12, 1126259462.40, 1126259462.44)  # doctest: +SKIP
     >>> pk.gps, pk.snr, pk.snr_reweighted  # doctest: +SKIP
     """
 
-    def __init__(self, cond: Any, bank: Any, *, veto_bins: int | None = DEFAULT_BINS,
-                 veto_domain: str = DEFAULT_DOMAIN, mismatch: float = 0.0,
-                 window_s: float = 0.1, cache_bytes: int = CACHE_BYTES):
+    def __init__(self, cond: Any, f_hz: Any, tau_s: Any, *, longest_s: float | None = None,
+                 veto_bins: int | None = DEFAULT_BINS, veto_domain: str = DEFAULT_DOMAIN,
+                 mismatch: float = 0.0, max_cond: float = MAX_COND,
+                 cache_bytes: int = CACHE_BYTES):
         self.cond = cond
-        self.bank = bank
         self.detector = str(getattr(cond, "detector", ""))
         self.values, self.sample_rate, self.t0 = data_arrays(cond)
+        self._f = np.atleast_2d(np.asarray(f_hz, float))
+        self._tau = np.atleast_2d(np.asarray(tau_s, float))
+        if self._f.shape != self._tau.shape:
+            raise InputError("f_hz and tau_s of the templates must have the same shape.")
         self.veto_bins = None if veto_bins is None else check_bins(veto_bins)
         self.veto_domain = check_domain(veto_domain)
         self.mismatch = float(mismatch)
+        self.max_cond = float(max_cond)
         self.pad = local_pad(cond)
-        self.valid = start_mask(cond, float(bank.duration_s.max()))
-        self._f = bank.f_hz
-        self._tau = bank.tau_s
-        self._window = int(np.ceil(window_s * self.sample_rate)) + 2 * KERNEL_HALF + 4
+        if longest_s is None:
+            from ringsearch.search.bank import DECAY_TIMES
+
+            longest_s = float(DECAY_TIMES * self._tau.max())
+        self.valid = start_mask(cond, float(longest_s))
+        self.weighted = doubly_whitened(cond)
         self._cache: OrderedDict[int, _Prepared] = OrderedDict()
         self._cache_bytes = int(cache_bytes)
         self._used = 0
@@ -194,39 +238,38 @@ class Probe:
         if hit is not None:
             self._cache.move_to_end(index)
             return hit
-        f, tau = self._f[index], self._tau[index]
-        n = local_grid(tau, self.sample_rate, self.pad)
+        f, tau = self._f[index:index + 1], self._tau[index:index + 1]
+        fs = self.sample_rate
+        n = local_grid(tau, fs, self.pad)
         resp = self._response(n)
-        local = local_template(f, tau, resp, n, self.sample_rate, self.pad)
-        veto = (veto_basis(local, resp, self.sample_rate, self.veto_bins, self.veto_domain)
+        prep = prepare_templates(f, tau, resp, n, fs, self.max_cond)
+        if not prep.ok[0]:
+            raise InputError(f"template {index} refused: {prep.reason[0]}.")
+        basis = basis_waveforms(f[0], tau[0], template_samples(tau, fs) + 2, fs)
+        veto = (veto_basis(basis, resp, n, fs, self.pad, self.veto_bins, self.veto_domain)
                 if self.veto_bins is not None else None)
-        local.spectrum = None  # only the veto needed it
-        prep = _Prepared(local, veto, scipy.fft.next_fast_len(n + self._window, real=True))
-        self._cache[index] = prep
-        self._used += prep.nbytes
+        out = _Prepared(basis, prep.cinv[0], veto, float(prep.cond[0]))
+        self._cache[index] = out
+        self._used += out.nbytes
         while self._used > self._cache_bytes and len(self._cache) > 1:
             _, old = self._cache.popitem(last=False)
             self._used -= old.nbytes
-        return prep
+        return out
 
     # ------------------------------------------------------------------ data access
     def _segment(self, start: int, length: int) -> np.ndarray:
         out = np.zeros(length)
-        a, b = max(start, 0), min(start + length, self.values.size)
+        a, b = max(start, 0), min(start + length, self.weighted.size)
         if b > a:
-            out[a - start:b - start] = self.values[a:b]
+            out[a - start:b - start] = self.weighted[a:b]
         return out
 
     def _coords(self, prep: _Prepared, lo: int, hi: int) -> np.ndarray:
         """Projection coordinates y (2K, hi - lo) at the on-grid start samples lo..hi-1."""
-        lt = prep.local
-        n_fft = 2 * (prep.conj_spec.shape[-1] - 1)
-        count = hi - lo
-        if count + lt.n - 1 > n_fft:
-            raise ValueError("window of start times longer than the probe was built for")
-        seg = self._segment(lo - lt.pad, n_fft)
-        z = scipy.fft.irfft(scipy.fft.rfft(seg) * prep.conj_spec, n_fft, axis=-1)
-        return z[:, :count]
+        length = prep.basis.shape[1]
+        seg = self._segment(lo, hi - lo + length - 1)
+        windows = np.lib.stride_tricks.sliding_window_view(seg, length)  # (hi - lo, L)
+        return prep.cinv @ (prep.basis @ windows.T)
 
     # ------------------------------------------------------------------ evaluation
     def at(self, index: int, gps: float) -> Peak:
@@ -242,6 +285,15 @@ class Probe:
             raise InputError(f"start time {gps} is not a valid start time of the "
                              f"{self.detector} data.")
         return self._evaluate(index, k, max(x - k, 0.0))
+
+    def at_sample(self, index: int, sample: int) -> Peak:
+        """Template ``index`` evaluated with its start on data sample ``sample``.
+
+        Examples
+        --------
+        >>> probe.at_sample(3, 65536).snr  # doctest: +SKIP
+        """
+        return self._evaluate(index, int(sample), 0.0)
 
     def refine(self, index: int, sample: int, lo_s: float = -1.0, hi_s: float = 1.0) -> Peak:
         """The best start of template ``index`` within [sample + lo_s, sample + hi_s] samples.
@@ -322,19 +374,24 @@ class Probe:
 
     def _evaluate(self, index: int, k: int, frac: float, prep: _Prepared | None = None) -> Peak:
         prep = prep or self.prepared(index)
-        lt = prep.local
+        length = prep.basis.shape[1]
+        veto = prep.veto
+        lo = min(0, veto.offset) if veto is not None else 0
+        hi = max(length, veto.offset + veto.weights.shape[1]) if veto is not None else length
         if frac <= 0.0:
-            seg = self._segment(k - lt.pad, lt.n)
+            seg = self._segment(k + lo, hi - lo)
         else:
             j0, h = fractional_delay_taps(frac)
-            raw = self._segment(k - lt.pad + j0, lt.n + h.size - 1)
+            raw = self._segment(k + lo + j0, hi - lo + h.size - 1)
             seg = np.correlate(raw, h, mode="valid")
-        y = lt.basis @ seg
+        z = prep.basis @ seg[-lo:-lo + length]
+        y = prep.cinv @ z
         snr = float(np.sqrt(y @ y))
-        amp = lt.to_amplitude @ y
-        if prep.veto is not None:
-            r = prep.veto.weights @ seg
-            chisq, dof = float(r @ r), int(prep.veto.dof)
+        amp = prep.to_amplitude @ z
+        if veto is not None:
+            a = veto.offset - lo
+            r = veto.weights @ seg[a:a + veto.weights.shape[1]]
+            chisq, dof = float(r @ r), int(veto.dof)
             rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
         else:
             chisq, dof, rw = float("nan"), 0, snr

@@ -21,10 +21,10 @@ samples
 Two users: the full-series correlation (:mod:`ringsearch.search.correlate`)
 prepares batches of templates on a data chunk's grid, and the evaluation at
 given start times (:mod:`ringsearch.search.probe`) and the veto
-(:mod:`ringsearch.search.veto`) prepare one template on a short grid of its
-own (:func:`local_template`).  Templates whose normalised Gram matrix has a
-condition number above :data:`MAX_COND` are refused with a reason: their
-modes cannot be separated by the data.
+(:mod:`ringsearch.search.veto`) prepare one template's Gram matrix and
+covariances on a short grid of its own (:func:`local_grid`).  Templates
+whose normalised Gram matrix has a condition number above :data:`MAX_COND`
+are refused with a reason: their modes cannot be separated by the data.
 """
 
 from __future__ import annotations
@@ -188,29 +188,6 @@ def prepare_templates(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray,
     return PreparedTemplates(v, chol, cinv, cond, ok, reason, sig)
 
 
-@dataclass
-class LocalTemplate:
-    """One template whitened on a short grid of its own, for evaluation at given start times.
-
-    ``basis``: (2K, n) whitened orthonormal basis ``e_j`` rolled so that the
-    template starts at sample ``pad`` of the grid, so for a data segment
-    ``seg = whitened[s - pad : s - pad + n]`` the projection coordinates at
-    start sample s are ``basis @ seg`` and ``rho^2 = |basis @ seg|^2``;
-    ``to_amplitude``: (2K, 2K) matrix C^{-T} taking those coordinates to the
-    maximum-likelihood real amplitudes; ``cond``: the condition number of the
-    normalised Gram matrix; ``spectrum``: (2K, n_freq) the orthonormal spectra
-    ``E`` (unrolled), which the veto's frequency bands need; callers that keep
-    many templates drop it (None) once the veto is built.
-    """
-
-    basis: np.ndarray
-    to_amplitude: np.ndarray
-    pad: int
-    n: int
-    cond: float
-    spectrum: np.ndarray | None = None
-
-
 def local_grid(tau_s: Any, sample_rate: float, pad: int) -> int:
     """FFT length holding a template (longest decay ``max(tau_s)``) plus the whitening filter.
 
@@ -221,28 +198,3 @@ def local_grid(tau_s: Any, sample_rate: float, pad: int) -> int:
     """
     return scipy.fft.next_fast_len(template_samples(tau_s, sample_rate) + 2 * pad + 2,
                                    real=True)
-
-
-def local_template(f_hz: Any, tau_s: Any, response: np.ndarray, n: int, sample_rate: float,
-                   pad: int, max_cond: float = MAX_COND) -> LocalTemplate:
-    """Prepare one template (modes ``f_hz``, ``tau_s``) on a grid of ``n`` samples.
-
-    ``response`` is the data's filter response H on the rfft grid of ``n``;
-    ``pad`` the whitening filter's half-length.  Raises InputError when the
-    template is refused.
-
-    Examples
-    --------
-    >>> H = np.ones(4096 // 2 + 1)
-    >>> lt = local_template([250.0], [0.004], H, 4096, 4096.0, 100)
-    >>> lt.basis.shape, bool(np.allclose(lt.basis @ lt.basis.T, np.eye(2)))
-    ((2, 4096), True)
-    """
-    f, tau = one_template(f_hz, tau_s)
-    prep = prepare_templates(f, tau, response, n, sample_rate, max_cond)
-    if not prep.ok[0]:
-        raise InputError(f"template refused: {prep.reason[0]}.")
-    e_spec = prep.cinv[0] @ np.conj(prep.spectra[0])  # (2K, n_freq) orthonormal spectra
-    basis = np.roll(scipy.fft.irfft(e_spec, n, axis=-1), pad, axis=-1)
-    return LocalTemplate(basis, np.ascontiguousarray(prep.cinv[0].T), int(pad), int(n),
-                         float(prep.cond[0]), e_spec)

@@ -110,7 +110,7 @@ def peak_table(peaks: Sequence[Peak], bank: Bank, detector: str,
     return out
 
 
-def detector_triggers(probe: Probe, peaks: pd.DataFrame, snr_threshold: float,
+def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_threshold: float,
                       cluster_window_s: float, cond_gram: np.ndarray | None = None,
                       edge: np.ndarray | None = None) -> pd.DataFrame:
     """Refine on-grid peaks, keep those above threshold, cluster them on the ranking SNR.
@@ -125,11 +125,11 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, snr_threshold: float,
 
     Examples
     --------
-    >>> trig = detector_triggers(probe, peaks, 5.0, 0.05)  # doctest: +SKIP
+    >>> trig = detector_triggers(probe, peaks, bank, 5.0, 0.05)  # doctest: +SKIP
     """
     refined = [probe.refine(int(i), int(s)) for i, s in
                zip(peaks["template_index"], peaks["sample"], strict=True)]
-    table = peak_table(refined, probe.bank, probe.detector, cond_gram, edge)
+    table = peak_table(refined, bank, probe.detector, cond_gram, edge)
     table = table[table["snr"] >= float(snr_threshold)].reset_index(drop=True)
     return cluster_triggers(table, cluster_window_s, column="snr_reweighted")
 

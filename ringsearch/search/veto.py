@@ -3,39 +3,38 @@
 Allen's test (Allen 2005, PRD 71, 062001) splits a template into p pieces that
 each carry an equal share of its expected SNR and checks that the data's SNR
 is shared among the pieces as a signal's would be.  Here it is adapted to the
-projection statistic of :mod:`ringsearch.search.filter` (K = N+1 complex
-amplitudes), with pieces that are either *time slices* of the whitened
-template (default) or *frequency bands* (Allen's choice for chirps).
+projection statistic of :mod:`ringsearch.search.templates` (K = N+1 complex
+amplitudes), with pieces that are either *time slices* of the template
+(default) or its *frequency bands* (Allen's choice for chirps).
 
-Let ``e_j`` (j = 0..2K-1) be the template's whitened, orthonormalised basis
-(``<e_j, e_k> = delta_jk``) and ``e_j^b`` its piece b (``sum_b e_j^b = e_j``).
-With the data coordinates ``Y^b_j = <d, e_j^b>``, ``y = sum_b Y^b`` (the
-projection coordinates, ``rho^2 = |y|^2``) and ``M^b_jk = <e_j^b, e_k^b>``
-(``sum_b M^b = I``), the residuals are ``R^b = Y^b - M^b y``.
+Let ``u_j`` (j = 0..2K-1) be the template's basis and ``u_j^b`` its piece b
+(``sum_b u_j^b = u_j``).  With the data coordinates ``Z^b_j = <d, u_j^b>``, their
+sum ``z = T Z`` (``rho^2 = z^T G^{-1} z``) and the pieces' inner products
+``S = <u^b_j, u^{b'}_k>`` (which are also the noise covariance of Z), a signal
+in the template's span ``sum_k a_k u_k`` gives ``Z = S T^T a`` and ``z = G a``
+with ``G = T S T^T``, so the residuals are ``R = L Z`` with
+``L = I - S T^T G^{-1} T``.
 
-* A signal in the template's span, ``d = n + sum_k c_k e_k``, adds ``M^b c`` to
-  ``Y^b`` and ``c`` to ``y``: it cancels from every residual whatever its
+* A signal in the template's span cancels from every residual whatever its
   amplitudes, so exact templates are never vetoed.  Signal power outside the
   span (a chirp fitted by a damped sinusoid) leaves residuals growing as SNR^2.
-* In Gaussian noise ``R = L Y`` is Gaussian with covariance ``L Sigma L^T``,
-  ``Sigma`` the noise covariance of the stacked ``Y``.  The statistic is
-  ``chi^2 = R^T (L Sigma L^T)^+ R``, chi-squared with ``rank(L Sigma L^T)``
-  degrees of freedom and independent of ``rho^2``.  ``L`` removes the 2K
-  directions of ``y``, so the rank is at most ``2Kp - 2K = 2K(p - 1)`` (for
-  K = 1 Allen's 2p - 2).  For frequency bands ``Sigma`` is block diagonal
-  (``M^b``: disjoint bands are independent) and the rank is exactly 2K(p-1);
-  for time slices ``Sigma`` is taken through the band projector (the whitened
-  noise is white only inside [f_low, f_high], and a sharp slice leaks out of
-  it).  Directions of ``L Sigma L^T`` with eigenvalue below :data:`RANK_TOL` of
-  the largest (e.g. a slice of a few samples, where the cosine and sine pieces
-  are nearly parallel) are dropped from the inverse *and* from the dof, which
-  each trigger reports as ``chisq_dof``.
+* In Gaussian noise ``R`` is Gaussian with covariance ``L S L^T``.  The
+  statistic is ``chi^2 = R^T (L S L^T)^+ R``, chi-squared with
+  ``rank(L S L^T)`` degrees of freedom and independent of ``rho^2``.  ``L``
+  removes the 2K directions of ``z``, so the rank is at most
+  ``2Kp - 2K = 2K(p - 1)`` (for K = 1 Allen's 2p - 2).  Directions of
+  ``L S L^T`` with eigenvalue below :data:`RANK_TOL` of the largest (e.g. a
+  slice of a few samples, where the cosine and sine pieces are nearly
+  parallel) are dropped from the inverse *and* from the dof, which each
+  trigger reports as ``chisq_dof``.
 
-The inner products are dot products of the whitened data with the pieces on the
-template's own short FFT grid (:func:`ringsearch.search.templates.local_template`,
-holding the template and the whitening filter); by Parseval on that grid the
-pieces sum exactly to the template, so the cancellation holds for the computed
-numbers.  The statistic is evaluated only at given start times -- the peaks the
+The pieces are pieces of the *raw* sampled template (time slices of it, or
+its frequency bands), and their data coordinates are dot products with the
+doubly whitened data of :mod:`ringsearch.search.probe`; their whitened inner
+products (the noise covariance) come from Parseval on the template's own short
+FFT grid (:func:`ringsearch.search.templates.local_grid`).  The pieces sum
+exactly to the template, so the cancellation holds for the computed numbers.
+The statistic is evaluated only at given start times -- the peaks the
 search refines -- never for the whole series: one piece basis per template,
 then one small matrix product per peak.
 
@@ -77,7 +76,7 @@ import numpy as np
 import scipy.fft
 
 from ringsearch.errors import InputError
-from ringsearch.search.templates import LocalTemplate, local_grid, local_template, one_template
+from ringsearch.search.templates import one_template
 
 #: Default number of frequency bands p.  Allen (2005) and the LIGO S5/S6 searches
 #: use p = 16 for long chirps; a damped sinusoid of quality factor a few spans a
@@ -97,18 +96,20 @@ DEFAULT_DOMAIN: str = "time"
 
 @dataclass
 class VetoBasis:
-    """The chi-squared of one template on its local grid (see :class:`LocalTemplate`).
+    """The chi-squared of one template, as weights on the doubly whitened data.
 
-    ``weights``: (dof, n) rows whose dot products with a data segment (the
-    one whose projection coordinates are ``local.basis @ segment``) are the
-    whitened residuals, so ``chi^2 = |weights @ segment|^2``; ``dof``: degrees
-    of freedom; ``edges``: band edges in Hz (``domain="frequency"``) or slice
-    edges in s after the grid start (``"time"``).
+    ``weights``: (dof, n_w) rows whose dot products with the doubly whitened
+    data ``H w`` (see :mod:`ringsearch.search.probe`) starting ``offset``
+    samples after the template start are the whitened residuals, so
+    ``chi^2 = |weights @ segment|^2``; ``dof``: degrees of freedom; ``edges``:
+    band edges in Hz (``domain="frequency"``) or slice edges in s after the
+    template start (``"time"``).
     """
 
     weights: np.ndarray
     dof: int
     edges: np.ndarray
+    offset: int = 0
 
 
 def check_bins(bins: Any) -> int:
@@ -149,68 +150,70 @@ def _equal_shares(power: np.ndarray, p: int) -> np.ndarray:
                            [power.size]])
 
 
-def veto_basis(local: LocalTemplate, response: np.ndarray, sample_rate: float,
-               bins: int = DEFAULT_BINS, domain: str = DEFAULT_DOMAIN) -> VetoBasis:
-    """Split a local template's orthonormal basis into ``bins`` equal-share pieces.
+def veto_basis(basis: np.ndarray, response: np.ndarray, n: int, sample_rate: float,
+               pad: int, bins: int = DEFAULT_BINS, domain: str = DEFAULT_DOMAIN) -> VetoBasis:
+    """Split a template's sampled basis into ``bins`` pieces and whiten their residuals.
 
-    ``local`` must still carry its ``spectrum``; ``response`` is the data's
-    filter response H on the rfft grid of ``local.n``; ``domain`` chooses time
-    slices or frequency bands.
+    ``basis`` is the template's raw sampled basis (2K, L), starting at its
+    first sample; ``response`` the data's filter response H on the rfft grid
+    of ``n`` samples (a grid holding the template and ``pad``, the whitening
+    filter's half-length, on each side).  Time slices cut the template where
+    its energy reaches each multiple of 1/p; frequency bands split its
+    whitened power equally.  In terms of the pieces' data coordinates Z
+    (``<d, u^b_j>``) and their whitened Gram matrix S (the noise covariance of
+    Z), a signal ``sum_k a_k u_k`` gives ``Z = S T^T a`` and ``z = T Z = G a``
+    (T sums the pieces), so the residual ``R = (I - S T^T G^{-1} T) Z``
+    cancels any signal in the template's span; it is whitened by its exact
+    covariance ``L S L^T`` (pseudo-inverse above :data:`RANK_TOL`).
 
     Examples
     --------
-    >>> H = np.ones(4096 // 2 + 1)
-    >>> lt = local_template([250.0], [0.004], H, 4096, 4096.0, 100)
-    >>> vb = veto_basis(lt, H, 4096.0, 4)
-    >>> vb.dof, vb.weights.shape[1]
-    (6, 4096)
+    >>> from ringsearch.search.templates import basis_waveforms
+    >>> u = basis_waveforms(np.array([250.0]), np.array([0.004]), 134, 4096.0)
+    >>> vb = veto_basis(u, np.ones(4096 // 2 + 1), 4096, 4096.0, 100, 4)
+    >>> vb.dof, vb.weights.shape
+    (6, (6, 134))
     """
+    from ringsearch.search.templates import parseval_gram
+
     p = check_bins(bins)
     domain = check_domain(domain)
-    if local.spectrum is None:
-        raise ValueError("the local template no longer carries its spectrum")
-    e_spec = local.spectrum
-    n, pad = local.n, local.pad
-    k2 = e_spec.shape[0]
-    basis = local.basis
-    pieces = np.zeros((p, k2, n))
+    k2, length = basis.shape
+    spec = scipy.fft.rfft(basis, n, axis=-1)  # raw spectra on the grid, start at sample 0
     if domain == "frequency":
-        wts = np.full(e_spec.shape[1], 2.0)  # rfft Parseval weights
+        wts = np.full(spec.shape[1], 2.0)  # rfft Parseval weights
         wts[0] = 1.0
         if n % 2 == 0:
             wts[-1] = 1.0
-        cut = _equal_shares(wts * np.sum(np.abs(e_spec) ** 2, axis=0), p)
+        cut = _equal_shares(wts * np.sum(np.abs(spec * response) ** 2, axis=0), p)
+        pieces_spec = np.zeros((p, k2, spec.shape[1]), complex)
         for b in range(p):
-            spec = np.zeros_like(e_spec)
-            spec[:, cut[b]:cut[b + 1]] = e_spec[:, cut[b]:cut[b + 1]]
-            pieces[b] = np.roll(scipy.fft.irfft(spec, n, axis=-1), pad, axis=-1)
+            pieces_spec[b, :, cut[b]:cut[b + 1]] = spec[:, cut[b]:cut[b + 1]]
+        # band pieces spread in time: keep them on the grid, from `pad` before the start
+        pieces = np.roll(scipy.fft.irfft(pieces_spec, n, axis=-1), pad, axis=-1)
+        offset = -pad
         freqs = scipy.fft.rfftfreq(n, 1 / sample_rate)
         edges = np.append(freqs[np.minimum(cut[:-1], freqs.size - 1)], freqs[-1])
-        # in-band pieces on disjoint bands: the noise covariance is block diagonal
-        cov = np.zeros((p * k2, p * k2))
-        for b in range(p):
-            cov[b * k2:(b + 1) * k2, b * k2:(b + 1) * k2] = pieces[b] @ pieces[b].T
     else:
         cut = _equal_shares(np.sum(basis ** 2, axis=0), p)
+        pieces = np.zeros((p, k2, length))
         for b in range(p):
             pieces[b, :, cut[b]:cut[b + 1]] = basis[:, cut[b]:cut[b + 1]]
+        pieces_spec = scipy.fft.rfft(pieces, n, axis=-1)
+        offset = 0
         edges = cut / sample_rate
-        # the whitened noise is white only inside the band (where H > 0): time slices
-        # leak out of it, so take their covariance through the band projector
-        from ringsearch.search.templates import parseval_gram
-
-        spec = scipy.fft.rfft(pieces.reshape(p * k2, n), axis=-1) * (response > 0)
-        cov = parseval_gram(spec, n)
-    flat = pieces.reshape(p * k2, n)
-    # band Gram matrices M^b = <e^b, e^b>; a signal c in the span adds M^b c to y^b
-    gram = np.einsum("bjt,bkt->bjk", pieces, pieces)
-    # residuals r = y^b - M^b y = L Y with Y the stacked band coordinates
-    lin = np.eye(p * k2) - np.tile(gram.reshape(p * k2, k2), (1, p))
+    flat = pieces.reshape(p * k2, -1)
+    # S: whitened inner products of all pieces (the noise covariance of Z)
+    cov = parseval_gram(pieces_spec.reshape(p * k2, -1) * response, n)
+    tsum = np.tile(np.eye(k2), (1, p))  # T: z = T Z
+    gram = tsum @ cov @ tsum.T  # G = <u_j, u_k>
+    lin = np.eye(p * k2) - cov @ tsum.T @ np.linalg.solve(gram, tsum)
     rcov = lin @ cov @ lin.T
+    rcov = 0.5 * (rcov + rcov.T)
     ev, vec = np.linalg.eigh(rcov)
     keep = ev > RANK_TOL * ev.max()
     white = (vec[:, keep] / np.sqrt(ev[keep])).T  # (dof, p*2K)
-    return VetoBasis(np.ascontiguousarray(white @ lin @ flat), int(keep.sum()), edges)
+    return VetoBasis(np.ascontiguousarray(white @ lin @ flat), int(keep.sum()), edges, offset)
 
 
 def mismatch_allowance(min_match: float) -> float:
@@ -254,30 +257,24 @@ def reweighted_snr(snr: Any, chisq: Any, dof: Any, mismatch: float = 0.0) -> np.
 
 def chisq_at(cond: Any, f_hz: Any, tau_s: Any, samples: Any, bins: int = DEFAULT_BINS,
              domain: str = DEFAULT_DOMAIN) -> tuple[np.ndarray, np.ndarray, int]:
-    """Band chi-squared of one template starting at whitened-data ``samples`` (on the grid).
+    """Chi-squared of one template starting at whitened-data ``samples`` (on the grid).
 
     Returns ``(chisq, snr, dof)``; ``snr`` is the projection SNR at the same
-    samples (the band coordinates sum to it), useful as a check.  The search
-    evaluates the statistic at refined, sub-sample start times through
-    :class:`ringsearch.search.probe.Probe`; this is the plain on-grid version.
+    samples.  The search evaluates the statistic at refined, sub-sample start
+    times through :class:`ringsearch.search.probe.Probe`; this is the plain
+    on-grid version, with the same numbers at grid samples.
 
     Examples
     --------
     >>> chi2, snr, dof = chisq_at(cond, [250.0], [0.004], [8192, 16384])  # doctest: +SKIP
     """
-    from ringsearch.search.correlate import data_arrays, local_pad, response_on
+    from ringsearch.search.probe import Probe
 
-    vals, fs, _ = data_arrays(cond)
     f, tau = one_template(f_hz, tau_s)
-    pad = local_pad(cond)
-    n = local_grid(tau, fs, pad)
-    resp = response_on(cond, n, fs)
-    lt = local_template(f, tau, resp, n, fs, pad)
-    vb = veto_basis(lt, resp, fs, bins, domain)
-    segs = data_segments(vals, np.asarray(samples, np.int64), pad, n)
-    x = segs @ vb.weights.T
-    y = segs @ lt.basis.T
-    return np.sum(x * x, axis=1), np.sqrt(np.sum(y * y, axis=1)), vb.dof
+    probe = Probe(cond, f, tau, veto_bins=bins, veto_domain=domain)
+    peaks = [probe.at_sample(0, int(k)) for k in np.asarray(samples, np.int64)]
+    return (np.array([pk.chisq for pk in peaks]), np.array([pk.snr for pk in peaks]),
+            peaks[0].chisq_dof if peaks else 0)
 
 
 def data_segments(vals: np.ndarray, samples: np.ndarray, pad: int, n: int) -> np.ndarray:
