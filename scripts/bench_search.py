@@ -76,9 +76,15 @@ def main(argv: list[str] | None = None) -> int:
     out.add("bank_wall_s", bank_wall, "s", "bank placement with the data's PSD (wall)")
 
     window = float(np.clip(bank.duration_s.max(), 0.05, 1.0))
+    from ringsearch.search.probe import Probe
+
+    setup = _cpu(lambda: Probe(c, bank.f_hz, bank.tau_s))
+    probe = Probe(c, bank.f_hz, bank.tau_s)
+    out.add("setup_cpu_s", setup, "CPU s",
+            "per detector and bank: doubly whitened data and every template's Gram matrix")
     filt = out.add("filter_cpu_s", _cpu(lambda: filter_peaks(
-        c, bank.f_hz, bank.tau_s, 4.75, window / 2)), "CPU s",
-        "full-series filter, one detector")
+        c, bank.f_hz, bank.tau_s, 4.75, window / 2, weighted=probe.weighted,
+        grams=probe.grams)), "CPU s", "full-series filter, one detector")
 
     # FFT floors: one complex inverse FFT of the chunk length per mode pair, template, chunk
     plan = plan_chunks(c.whitened.size, fs, float(bank.duration_s.max()), filter_length(c))

@@ -124,19 +124,28 @@ def test_injections_recovered_with_noncentral_chi2_snr_and_right_parameters(monk
     assert np.all(np.abs(np.log(trig.tau220_s / tau_inj)) <= 0.5)
 
 
-def test_chunked_filter_equals_single_fft():
-    # Long data processed in overlapping chunks must give exactly the linear correlation.
+def test_chunked_filter_equals_single_fft_and_the_plain_filter():
+    # Long data processed in overlapping chunks must give exactly the linear correlation;
+    # in single precision (the default) to 1e-5, in double to 1e-10.  Both agree with the
+    # plain double-precision full-band filter (snr_series: whitened templates, one FFT)
+    # to 1e-3, the whitening filter's truncation in that filter (energy 1e-6 left out),
+    # and the probe's on-grid values are the filter's own to rounding.
+    from ringsearch.search.probe import Probe
+
     rng = np.random.default_rng(3)
     cond = white_data(40.0, FS, rng, f_high=900.0, taper_hz=20.0)
     f, tau = np.array([[250.0]]), np.array([[0.01]])
-    a, _ = filter_peaks(cond, f, tau, 0.01, 0.05)  # every bin's maximum
+    probe = Probe(cond, f, tau, veto_bins=None)
+    kw = {"weighted": probe.weighted, "grams": probe.grams}
+    a, _ = filter_peaks(cond, f, tau, 0.01, 0.05, **kw)  # every bin's maximum
+    d, _ = filter_peaks(cond, f, tau, 0.01, 0.05, precision="double", **kw)
     import ringsearch.search.correlate as flt
 
     orig = flt.plan_chunks
     try:
-        flt.plan_chunks = lambda *args, **kw: orig(*args, **{**kw, "max_single_s": 1.0})
-        c, _ = filter_peaks(cond, f, tau, 0.01, 0.05, chunk_s=2.0)
-        assert flt.plan_chunks(cond.whitened_values.size, FS, 0.08, 100, 2.0).n_chunks > 5
+        flt.plan_chunks = lambda *args, **k: orig(*args, **{**k, "max_single_s": 1.0})
+        c, _ = filter_peaks(cond, f, tau, 0.01, 0.05, chunk_s=2.0, **kw)
+        assert flt.plan_chunks(cond.whitened_values.size, FS, 0.08, 0, 2.0).n_chunks > 5
     finally:
         flt.plan_chunks = orig
     # a time bin straddling a chunk boundary gives one maximum per chunk: keep the larger
@@ -145,11 +154,18 @@ def test_chunked_filter_equals_single_fft():
     def per_bin(x):
         return x.assign(b=x["sample"] // wbin).groupby("b").snr_grid.max()
 
-    pa, pc = per_bin(a), per_bin(c)
+    pa, pc, pd_ = per_bin(a), per_bin(c), per_bin(d)
     assert len(pa) > 10
-    assert list(pa.index) == list(pc.index)
-    # the whitening filter is cut where its outside energy is 1e-6: amplitude errors 1e-3
-    np.testing.assert_allclose(pa.to_numpy(), pc.to_numpy(), rtol=1e-3)
+    assert list(pa.index) == list(pc.index) == list(pd_.index)
+    np.testing.assert_allclose(pa.to_numpy(), pc.to_numpy(), rtol=1e-5)
+    np.testing.assert_allclose(pa.to_numpy(), pd_.to_numpy(), rtol=1e-5)
+    on_grid = np.array([probe.at_sample(0, k).snr for k in d["sample"]])
+    np.testing.assert_allclose(on_grid, d["snr_grid"].to_numpy(), rtol=1e-10)
+    plain = snr_series(cond, f[0], tau[0])
+    lookup = dict(zip(np.round((plain.gps - cond.t0) * FS).astype(int), plain.snr,
+                      strict=True))
+    ref = np.array([lookup[k] for k in d["sample"]])
+    np.testing.assert_allclose(d["snr_grid"].to_numpy(), ref, rtol=1e-3)
 
 
 def test_snr_series_agrees_with_projection_and_skips_unanalysable_time():

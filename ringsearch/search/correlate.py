@@ -12,7 +12,8 @@ analysable time (with the whole template inside the same analysable
 segment) count.
 
 This module *finds* peaks: per template, the largest on-grid SNR in each time
-bin (:func:`filter_peaks`).  Every number the search reports about a peak --
+bin (:func:`filter_peaks`), computed on the doubly whitened data with the raw
+templates, as the probe computes it.  Every number the search reports about a peak --
 its sub-sample start time, SNR, amplitudes and chi-squared -- is then
 computed by :class:`ringsearch.search.probe.Probe` on the template's own short
 grid, so the same numbers come out whether a peak was found here or asked for
@@ -35,6 +36,7 @@ from ringsearch.errors import InputError
 from ringsearch.search.bank import DECAY_TIMES
 from ringsearch.search.templates import (
     MAX_COND,
+    basis_waveforms,
     one_template,
     prepare_templates,
     template_samples,
@@ -200,59 +202,62 @@ def _iter_batches(n: int, size: int):
 
 
 def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: float,
-                 bin_s: float, *, chunk_s: float | None = None, batch: int | None = None,
-                 max_cond: float = MAX_COND, progress: bool = False, block_chunks: int = 32,
+                 bin_s: float, *, weighted: np.ndarray, grams: Any,
+                 chunk_s: float | None = None, batch: int | None = None,
+                 progress: bool = False, block_chunks: int = 32,
                  gps_window: tuple[float, float] | None = None,
                  precision: str = "single") -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per-template maxima of the on-grid projection SNR above threshold.
 
-    The templates are prepared in double precision and orthonormalised in the
-    frequency domain (``E = C^{-1} conj(V)``); the correlations run in single
-    precision by default (``precision="double"`` for checking): the peaks are
-    only *found* here, and every reported number is computed again by the
-    probe in double precision, so single precision costs nothing but a
-    relative error of ~1e-6 in which grid samples pass the threshold margin.
+    ``weighted`` is the doubly whitened series ``x = H w`` of
+    :func:`ringsearch.search.probe.doubly_whitened` and ``grams`` the
+    templates' factored Gram matrices (:func:`ringsearch.search.templates.template_grams`).
+    The correlations are ``z_j(t0) = sum_m x[t0 + m] u_j[m]`` with the raw
+    sampled basis u, computed by FFT over chunks that overlap by the longest
+    template only (the whitening is already in x), and ``rho^2 = |C^{-1} z|^2``.
 
     Returns ``(peaks, templates)``: one row per (template, time bin of width
     ``bin_s`` aligned on global sample numbers) whose maximum exceeds
     ``snr_threshold``, with columns ``template_index, sample, gps, snr_grid``;
     and one row per template with ``cond_gram`` and ``refused`` (reason, or "").
     ``templates.attrs["analysed_s"]`` is the number of seconds of valid start
-    times filtered.
+    times filtered.  The correlations run in single precision by default
+    (``precision="double"`` for checking): the peaks are only *found* here,
+    and every reported number is computed again by the probe in double
+    precision.
 
     Examples
     --------
-    >>> peaks, tmpl = filter_peaks(cond, bank.f_hz, bank.tau_s, 5.0, 0.05)  # doctest: +SKIP
+    >>> peaks, tmpl = filter_peaks(cond, bank.f_hz, bank.tau_s, 5.0, 0.05,
+    ...                            weighted=x, grams=grams)  # doctest: +SKIP
     """
     vals, fs, t0 = data_arrays(cond)
+    x = np.asarray(weighted, float)
     f = np.atleast_2d(np.asarray(f_hz, float))
     tau = np.atleast_2d(np.asarray(tau_s, float))
     nt, k = f.shape
     k2 = 2 * k
     longest = float(DECAY_TIMES * tau.max())
-    pad = filter_length(cond)
-    plan = plan_chunks(vals.size, fs, longest, pad, chunk_s)
+    plan = plan_chunks(vals.size, fs, longest, 0, chunk_s)
     ok_t0 = start_mask(cond, longest, gps_window)
     if not ok_t0.any():
         raise InputError(f"no analysable time of {getattr(cond, 'detector', '?')} is long "
                          "enough for the longest template (inside the GPS window).")
-    # only chunks holding valid start times are filtered (e.g. a short GPS window)
-    valid = np.flatnonzero(ok_t0)
-    first_c, last_c = valid[0] // plan.step, valid[-1] // plan.step
-    if plan.n_chunks == 1 and valid[-1] - valid[0] + plan.tail + 2 * plan.pad + 1 < \
-            0.5 * plan.n_fft:
-        # one FFT over the whole data would be mostly wasted: re-plan on the valid span
-        sub = plan_chunks(valid[-1] - valid[0] + 1, fs, longest, pad, chunk_s)
-        offset = valid[0]
-        plan = FilterPlan(sub.n_fft, sub.step, pad, sub.tail, sub.n_chunks)
-        first_c, last_c = 0, sub.n_chunks - 1
-    else:
-        offset = 0
     if precision not in ("single", "double"):
         raise InputError(f"precision must be 'single' or 'double', got {precision!r}.")
     real = np.float32 if precision == "single" else np.float64
     cplx = np.complex64 if precision == "single" else np.complex128
-    resp = response_on(cond, plan.n_fft, fs)
+    # only chunks holding valid start times are filtered (e.g. a short GPS window)
+    valid = np.flatnonzero(ok_t0)
+    first_c, last_c = valid[0] // plan.step, valid[-1] // plan.step
+    if plan.n_chunks == 1 and valid[-1] - valid[0] + plan.tail + 1 < 0.5 * plan.n_fft:
+        # one FFT over the whole data would be mostly wasted: re-plan on the valid span
+        sub = plan_chunks(valid[-1] - valid[0] + 1, fs, longest, 0, chunk_s)
+        offset = valid[0]
+        plan = FilterPlan(sub.n_fft, sub.step, 0, sub.tail, sub.n_chunks)
+        first_c, last_c = 0, sub.n_chunks - 1
+    else:
+        offset = 0
     if batch is None:
         # keep the (batch, 2K, n_fft) correlation block near 32 MB
         batch = int(max(1, min(256, (8 // np.dtype(real).itemsize) * 4_000_000
@@ -260,47 +265,41 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     wbin = max(1, int(round(bin_s * fs)))
     thr2 = float(snr_threshold) ** 2
     out: list[np.ndarray] = []
-    cond_g = np.full(nt, np.inf)
-    refused = [""] * nt
     from tqdm import tqdm
 
     starts = [offset + c * plan.step for c in range(first_c, last_c + 1)]
     blocks = [starts[i:i + block_chunks] for i in range(0, len(starts), block_chunks)]
     bar = tqdm(total=len(blocks) * nt, desc=f"filtering {getattr(cond, 'detector', '')}",
                unit=" templates", disable=not progress, leave=False)
+    n_sup = min(plan.n_fft, plan.tail + 2)
     for bstarts in blocks:
         # FFT each data chunk of this block once; every template reuses it
-        chunks = np.stack([_load_chunk(vals, s - plan.pad, plan.n_fft) for s in bstarts])
+        chunks = np.stack([_load_chunk(x, s, plan.n_fft) for s in bstarts])
         wspec = scipy.fft.rfft(chunks, axis=-1).astype(cplx)
         for idx in _iter_batches(nt, batch):
-            prep = prepare_templates(f[idx], tau[idx], resp, plan.n_fft, fs, max_cond)
-            cond_g[idx] = prep.cond
-            for j, i in enumerate(idx):
-                refused[i] = prep.reason[j]
-            good = np.flatnonzero(prep.ok)
+            good = idx[grams.ok[idx]]
             if good.size == 0:
                 bar.update(len(idx))
                 continue
-            # orthonormal conjugate spectra C^{-1} conj(V): the correlations are then the
+            u = basis_waveforms(f[good], tau[good], n_sup, fs)  # raw, from sample 0
+            # orthonormal conjugate spectra C^{-1} conj(U): the correlations are then the
             # projection coordinates y themselves
-            spec = np.matmul(prep.cinv[good], prep.spectra[good]).astype(cplx)
-            for c, v in enumerate(bstarts):
-                # valid starts of this chunk: global [v, v + step) = relative [pad, pad + step)
-                s = v - plan.pad  # global sample of the chunk's first element
-                a_rel = plan.pad
-                b_rel = min(plan.pad + plan.step, vals.size - s)
-                if b_rel <= a_rel:
+            spec = np.matmul(grams.cinv[good], np.conj(scipy.fft.rfft(u, plan.n_fft, axis=-1)))
+            spec = spec.astype(cplx)
+            for c, s in enumerate(bstarts):
+                # valid starts of this chunk: global [s, s + step) = relative [0, step)
+                b_rel = min(plan.step, vals.size - s)
+                if b_rel <= 0:
                     continue
-                g0 = s + a_rel
-                mask = ok_t0[g0:s + b_rel]
+                mask = ok_t0[s:s + b_rel]
                 if not mask.any():
                     continue
-                y = scipy.fft.irfft(spec * wspec[c], plan.n_fft, axis=-1)[:, :, a_rel:b_rel]
+                y = scipy.fft.irfft(spec * wspec[c], plan.n_fft, axis=-1)[:, :, :b_rel]
                 rho2 = np.einsum("bij,bij->bj", y, y).astype(np.float64)
                 rho2[:, ~mask] = -1.0
                 # maxima per time bin aligned on global sample numbers
-                first = (g0 // wbin) * wbin
-                lead = g0 - first
+                first = (s // wbin) * wbin
+                lead = s - first
                 nb = math.ceil((lead + rho2.shape[1]) / wbin)
                 padded = np.full((rho2.shape[0], nb * wbin), -1.0)
                 padded[:, lead:lead + rho2.shape[1]] = rho2
@@ -310,8 +309,8 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
                 ti, bi = np.nonzero(peak > thr2)
                 if ti.size == 0:
                     continue
-                rel = bi * wbin + arg[ti, bi] - lead  # index from a_rel
-                out.append(np.column_stack([idx[good[ti]], s + a_rel + rel, peak[ti, bi]]))
+                rel = bi * wbin + arg[ti, bi] - lead  # index from the chunk's start
+                out.append(np.column_stack([good[ti], s + rel, peak[ti, bi]]))
             bar.update(len(idx))
     bar.close()
     arr = np.concatenate(out) if out else np.empty((0, 3))
@@ -320,7 +319,7 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     peaks["gps"] = t0 + peaks["sample"].to_numpy() / fs
     peaks["snr_grid"] = np.sqrt(arr[:, 2])
     peaks = peaks.sort_values(["sample", "template_index"], kind="stable").reset_index(drop=True)
-    templates = pd.DataFrame({"cond_gram": cond_g, "refused": refused})
+    templates = pd.DataFrame({"cond_gram": grams.cond, "refused": grams.reason})
     templates.attrs["analysed_s"] = float(ok_t0.sum()) / fs
     return peaks, templates
 

@@ -649,7 +649,8 @@ class Search:
         for d, c in conds.items():
             thr = cfg.threshold_for(d)
             peaks, tmpl = filter_peaks(c, bank.f_hz, bank.tau_s, thr * GRID_MARGIN,
-                                       window / 2, progress=progress,
+                                       window / 2, weighted=probes[d].weighted,
+                                       grams=probes[d].grams, progress=progress,
                                        gps_window=self._gps_window())
             analysed[d] = float(tmpl.attrs["analysed_s"])
             bad = tmpl[tmpl.refused != ""]

@@ -52,9 +52,10 @@ from ringsearch.errors import InputError
 from ringsearch.search.correlate import data_arrays, local_pad, response_on, start_mask
 from ringsearch.search.templates import (
     MAX_COND,
+    Grams,
     basis_waveforms,
     local_grid,
-    prepare_templates,
+    template_grams,
     template_samples,
 )
 from ringsearch.search.veto import (
@@ -157,15 +158,18 @@ def doubly_whitened(cond: Any) -> np.ndarray:
     """The whitened data filtered once more by the whitening response: ``x = H w``.
 
     Then ``<d, u> = sum_j x[j] u[j]`` for a template u sampled on the data's
-    samples (H is real and symmetric).  One zero-padded FFT of twice the data
-    length, so the filter's ringing does not wrap around.
+    samples (H is real and symmetric).  One FFT of the data zero-padded by
+    twice the length holding all but 1e-10 of the filter's impulse-response
+    energy, so its ringing does not wrap around.
 
     Examples
     --------
     >>> x = doubly_whitened(cond)  # doctest: +SKIP
     """
+    from ringsearch.search.correlate import filter_length
+
     vals, fs, _ = data_arrays(cond)
-    n = scipy.fft.next_fast_len(2 * vals.size, real=True)
+    n = scipy.fft.next_fast_len(vals.size + 2 * filter_length(cond, tol=1e-10), real=True)
     spec = scipy.fft.rfft(vals, n)
     spec *= response_on(cond, n, fs)
     return scipy.fft.irfft(spec, n)[:vals.size]
@@ -190,6 +194,9 @@ class Probe:
         Split of the veto.
     mismatch : float
         The veto's mismatch allowance (see :func:`ringsearch.search.veto.reweighted_snr`).
+    grams : Grams, optional
+        The templates' factored Gram matrices for this data (computed when
+        not given); the full-series filter uses the same ones.
 
     Examples
     --------
@@ -201,7 +208,7 @@ class Probe:
     def __init__(self, cond: Any, f_hz: Any, tau_s: Any, *, longest_s: float | None = None,
                  veto_bins: int | None = DEFAULT_BINS, veto_domain: str = DEFAULT_DOMAIN,
                  mismatch: float = 0.0, max_cond: float = MAX_COND,
-                 cache_bytes: int = CACHE_BYTES):
+                 grams: Grams | None = None, cache_bytes: int = CACHE_BYTES):
         self.cond = cond
         self.detector = str(getattr(cond, "detector", ""))
         self.values, self.sample_rate, self.t0 = data_arrays(cond)
@@ -220,10 +227,13 @@ class Probe:
             longest_s = float(DECAY_TIMES * self._tau.max())
         self.valid = start_mask(cond, float(longest_s))
         self.weighted = doubly_whitened(cond)
+        self._responses: dict[int, np.ndarray] = {}
+        # every template's Gram matrix, on its own short grid (shared with the filter)
+        self.grams = grams if grams is not None else template_grams(
+            self._f, self._tau, self._response, self.sample_rate, self.pad, self.max_cond)
         self._cache: OrderedDict[int, _Prepared] = OrderedDict()
         self._cache_bytes = int(cache_bytes)
         self._used = 0
-        self._responses: dict[int, np.ndarray] = {}
 
     # ------------------------------------------------------------------ templates
     def _response(self, n: int) -> np.ndarray:
@@ -238,17 +248,17 @@ class Probe:
         if hit is not None:
             self._cache.move_to_end(index)
             return hit
-        f, tau = self._f[index:index + 1], self._tau[index:index + 1]
+        f, tau = self._f[index], self._tau[index]
         fs = self.sample_rate
-        n = local_grid(tau, fs, self.pad)
-        resp = self._response(n)
-        prep = prepare_templates(f, tau, resp, n, fs, self.max_cond)
-        if not prep.ok[0]:
-            raise InputError(f"template {index} refused: {prep.reason[0]}.")
-        basis = basis_waveforms(f[0], tau[0], template_samples(tau, fs) + 2, fs)
-        veto = (veto_basis(basis, resp, n, fs, self.pad, self.veto_bins, self.veto_domain)
-                if self.veto_bins is not None else None)
-        out = _Prepared(basis, prep.cinv[0], veto, float(prep.cond[0]))
+        if not self.grams.ok[index]:
+            raise InputError(f"template {index} refused: {self.grams.reason[index]}.")
+        basis = basis_waveforms(f, tau, template_samples(tau, fs) + 2, fs)
+        veto = None
+        if self.veto_bins is not None:
+            n = local_grid(tau, fs, self.pad)
+            veto = veto_basis(basis, self._response(n), n, fs, self.pad, self.veto_bins,
+                              self.veto_domain)
+        out = _Prepared(basis, self.grams.cinv[index], veto, float(self.grams.cond[index]))
         self._cache[index] = out
         self._used += out.nbytes
         while self._used > self._cache_bytes and len(self._cache) > 1:

@@ -198,3 +198,54 @@ def local_grid(tau_s: Any, sample_rate: float, pad: int) -> int:
     """
     return scipy.fft.next_fast_len(template_samples(tau_s, sample_rate) + 2 * pad + 2,
                                    real=True)
+
+
+@dataclass
+class Grams:
+    """Every template's Gram matrix, factored, for one detector's data.
+
+    ``cinv``: (T, 2K, 2K) inverse Cholesky factors C^{-1} of G (zero for
+    refused templates); ``cond``: normalised-Gram condition numbers; ``ok``:
+    templates accepted; ``reason``: why a template was refused ("" if not).
+    """
+
+    cinv: np.ndarray
+    cond: np.ndarray
+    ok: np.ndarray
+    reason: list[str]
+
+
+def template_grams(f_hz: np.ndarray, tau_s: np.ndarray, response: Any, sample_rate: float,
+                   pad: int, max_cond: float = MAX_COND, batch: int = 256) -> Grams:
+    """Gram matrices of all templates, each on its own short grid (:func:`local_grid`).
+
+    ``response(n)`` gives the data's filter response on the rfft grid of n
+    samples.  Templates sharing a grid length are prepared together.  The
+    full-series filter and the probe both use these, so their on-grid SNRs
+    agree to rounding.
+
+    Examples
+    --------
+    >>> g = template_grams(np.array([[250.0]]), np.array([[0.004]]),
+    ...                    lambda n: np.ones(n // 2 + 1), 4096.0, 100)
+    >>> bool(g.ok[0]), g.cinv.shape
+    (True, (1, 2, 2))
+    """
+    f = np.atleast_2d(np.asarray(f_hz, float))
+    tau = np.atleast_2d(np.asarray(tau_s, float))
+    nt, k = f.shape
+    grids = np.array([local_grid(tau[i], sample_rate, pad) for i in range(nt)])
+    cinv = np.zeros((nt, 2 * k, 2 * k))
+    cond = np.full(nt, np.inf)
+    ok = np.zeros(nt, bool)
+    reason = [""] * nt
+    for n in np.unique(grids):
+        members = np.flatnonzero(grids == n)
+        resp = response(int(n))
+        for a in range(0, members.size, batch):
+            idx = members[a:a + batch]
+            prep = prepare_templates(f[idx], tau[idx], resp, int(n), sample_rate, max_cond)
+            cinv[idx], cond[idx], ok[idx] = prep.cinv, prep.cond, prep.ok
+            for j, i in enumerate(idx):
+                reason[i] = prep.reason[j]
+    return Grams(cinv, cond, ok, reason)
