@@ -75,6 +75,12 @@ def main(argv: list[str] | None = None) -> int:
     out.add("templates", len(bank), "", "templates in the bank")
     out.add("bank_wall_s", bank_wall, "s", "bank placement with the data's PSD (wall)")
 
+    t_wall = time.perf_counter()
+    res = Search(bank=bank).run(conds)
+    out.add("search_wall_s", time.perf_counter() - t_wall, "s",
+            f"whole two-detector search ({res.extra.get('n_slides', 0)} slides, wall)")
+    out.add("peak_rss_mb", peak_rss_mb(), "MB",
+            "peak resident memory after the search (before the floors and the baseline)")
     window = float(np.clip(bank.duration_s.max(), 0.05, 1.0))
     from ringsearch.search.probe import Probe
 
@@ -145,11 +151,6 @@ def main(argv: list[str] | None = None) -> int:
     out.add("refine_veto_over_filter_loud", (trig_loud - filt) / filt, "x",
             "refinement + veto / filter, with a loud (SNR 20) ringdown")
 
-    t_wall = time.perf_counter()
-    res = Search(bank=bank).run(conds)
-    out.add("search_wall_s", time.perf_counter() - t_wall, "s",
-            f"whole two-detector search ({res.extra.get('n_slides', 0)} slides, wall)")
-    out.add("peak_rss_mb", peak_rss_mb(), "MB", "peak resident memory")
     out.emit(args)
     return 0
 
