@@ -131,6 +131,11 @@ def test_listed_plan_on_file_data_uses_the_segments(tmp_path):
     spec.config["data"].update({"source": "files", "gps_start": None, "gps_end": None})
     segs = [[(t0, t0 + 40.0)], [(t0 + 1.0, t0 + 40.0)]]   # 39 s: two stretches of 19.5 s
     chunks, inj = plan_campaign(spec, segs)
+    # recorded data: each stretch is also searched once without injections (the
+    # background of the default at-times search), whatever the rounds that reuse it
+    bg = chunks[chunks["kind"] == "background"]
+    assert (bg["gps_start"] - t0).tolist() == [1.0, 20.5] and (bg["n_injections"] == 0).all()
+    chunks = chunks[chunks["kind"] == "injections"]
     assert (chunks["gps_start"] - t0).tolist() == [1.0, 20.5]
     assert len(chunks) == 2 and chunks["round"].tolist() == [0, 0]
     assert inj["chunk"].tolist() == [0, 0, 1]

@@ -276,9 +276,10 @@ def plan_campaign(spec: CampaignSpec, segments=None) -> tuple[pd.DataFrame, pd.D
     (10, 10)
     """
     data, inj = spec.data, spec.injections
-    if "file" in inj:
-        return _plan_listed(spec, segments)
     stretches = data_chunks(spec, segments)
+    if "file" in inj:
+        chunks, injections = _plan_listed(spec, stretches)
+        return with_background_units(spec, chunks, stretches), injections
     rounds = data["reuse"]
     capacity = int(stretches["n_slots"].sum()) * rounds
     count = inj["count"]
@@ -350,14 +351,94 @@ def plan_campaign(spec: CampaignSpec, segments=None) -> tuple[pd.DataFrame, pd.D
     injections.insert(1, "chunk", chunk)
     sizes = injections.groupby("chunk").size()
     chunks["n_injections"] = chunks["chunk"].map(sizes).astype(np.int64)
-    return chunks, injections
+    return with_background_units(spec, chunks, stretches), injections
 
 
-def _plan_listed(spec: CampaignSpec, segments) -> tuple[pd.DataFrame, pd.DataFrame]:
+def background_chunks_needed(spec: CampaignSpec) -> int:
+    """How many noise-only stretches a synthetic campaign searches for its background.
+
+    The FAR at a threshold of rate F is measured from the n background events
+    louder than it, with relative standard error ``1/sqrt(n)`` (Poisson);
+    ``threshold.background_precision`` = p asks for ``n = 1/p^2``, that is
+    ``T = 1 / (p^2 F)`` seconds of background, or ``threshold.background_s``
+    seconds when given.  A stretch of ``chunk_s`` gives about
+    ``(chunk_s - 2 pad_s) x slides`` of it.  Campaigns with an SNR threshold
+    and no ``background_s`` need none; the count is capped by
+    ``threshold.max_background_chunks`` (the results then state the precision
+    reached).
+
+    Examples
+    --------
+    >>> from ringsearch.campaign.spec import spec_from_dict
+    >>> spec = spec_from_dict({"campaign": {"seed": 1},
+    ...     "data": {"source": "synthetic", "detectors": ["H1", "L1"], "chunk_s": 64},
+    ...     "injections": {"count": 10, "mass": 60, "spin": 0.7,
+    ...                    "loudness": {"by": "snr", "snr": 8}},
+    ...     "search": {"mass": [50, 70], "spin": [0.6, 0.8]},
+    ...     "threshold": {"far_per_year": 1e4, "slides": 50, "background_precision": 0.5}})
+    >>> background_chunks_needed(spec)
+    5
+    """
+    from ringsearch.physics.units import YEAR_S
+
+    data, th = spec.data, spec.threshold
+    if th["background_s"] is not None:
+        needed = float(th["background_s"])
+    elif th["far_per_year"] is not None:
+        needed = YEAR_S / (th["background_precision"] ** 2 * th["far_per_year"])
+    else:
+        return 0
+    per_chunk = max(data["chunk_s"] - 2 * data["pad_s"], 1.0) * max(th["slides"], 1)
+    return int(min(math.ceil(needed / per_chunk), th["max_background_chunks"]))
+
+
+def with_background_units(spec: CampaignSpec, chunks: pd.DataFrame,
+                          stretches: pd.DataFrame) -> pd.DataFrame:
+    """Add the units that search the data without injections, once (``search.mode`` at-times).
+
+    Every chunk gets ``kind``: ``"injections"``, or ``"background"`` for a unit
+    searched whole with its time slides and no injection.  Recorded data:
+    one background unit per data stretch used (however many rounds of
+    injections reuse it).  Synthetic data: :func:`background_chunks_needed`
+    stretches of fresh noise after the injection stretches.  With
+    ``search.mode = "full"`` every injection chunk makes its own background.
+
+    Examples
+    --------
+    >>> chunks = with_background_units(spec, chunks, stretches)  # doctest: +SKIP
+    """
+    chunks = chunks.copy()
+    chunks["kind"] = "injections"
+    if spec.search["mode"] != "at-times" or len(spec.detectors) < 2:
+        return chunks
+    data = spec.data
+    rows = []
+    if data["source"] == "files":
+        by_index = stretches.set_index("data_index")
+        for d in sorted(set(chunks["data_index"].astype(int))):
+            rows.append({"data_index": d, "gps_start": float(by_index.loc[d, "gps_start"]),
+                         "gps_end": float(by_index.loc[d, "gps_end"])})
+    else:
+        first = int(stretches["data_index"].max()) + 1 if len(stretches) else 0
+        chunk_s, t0 = data["chunk_s"], data["gps_start"]
+        for j in range(background_chunks_needed(spec)):
+            d = first + j
+            rows.append({"data_index": d, "gps_start": t0 + d * chunk_s,
+                         "gps_end": t0 + (d + 1) * chunk_s})
+    n0 = len(chunks)
+    extra = pd.DataFrame([{"chunk": n0 + i, "round": -1, "n_injections": 0,
+                           "kind": "background", **r} for i, r in enumerate(rows)],
+                         columns=list(chunks.columns))
+    out = pd.concat([chunks, extra], ignore_index=True) if rows else chunks
+    return out.astype({"chunk": np.int64, "data_index": np.int64, "round": np.int64,
+                       "n_injections": np.int64})
+
+
+def _plan_listed(spec: CampaignSpec, stretches: pd.DataFrame
+                 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """:func:`plan_campaign` for ``injections.file``: place each listed row in its chunk."""
     data, spacing, pad = spec.data, spec.injections["spacing_s"], spec.data["pad_s"]
     table = listed_injections(spec)
-    stretches = data_chunks(spec, segments)
     gps = table["gps"].to_numpy()
     ids = table["injection_id"].to_numpy()
     where = np.full(gps.size, -1, dtype=np.int64)

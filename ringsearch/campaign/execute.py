@@ -274,7 +274,8 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         bar = _progress(len(chunks), len(chunks) - len(pending_chunks(out)), progress)
         try:
             args = [(spec.config, {**c, "shared": shared} if shared else c,
-                     groups[c["chunk"]].reset_index(drop=True)) for c in todo]
+                     groups[c["chunk"]].reset_index(drop=True) if c["chunk"] in groups
+                     else injections.iloc[:0]) for c in todo]
             if client is not None:
                 _run_dask(client, args, worker, out, bar)
             elif workers == 1 or len(args) <= 1:

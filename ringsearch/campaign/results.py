@@ -156,7 +156,17 @@ def thresholds(config: dict, background: pd.DataFrame, livetime: pd.DataFrame,
         rows.append({"template_overtones": n_tpl, "threshold": thr, "kind": "far",
                      "target_far_per_year": th["far_per_year"], "background_years": years,
                      "n_background": int(len(s)), "limited": limited})
-    return pd.DataFrame(rows)
+    out = pd.DataFrame(rows)
+    # how well the background measures the FAR at the threshold: n events at least as
+    # loud, relative standard error 1/sqrt(n) (Poisson)
+    n_at = []
+    for r in out.itertuples():
+        stats = (background.loc[background["template_overtones"] == r.template_overtones,
+                                "stat"].to_numpy(float) if len(background) else np.array([]))
+        n_at.append(int((stats >= r.threshold).sum()))
+    out["n_background_above"] = n_at
+    out["far_relative_error"] = [1.0 / math.sqrt(n) if n > 0 else math.inf for n in n_at]
+    return out
 
 
 def accuracy_table(found: pd.DataFrame) -> pd.DataFrame:
@@ -366,6 +376,9 @@ def assemble(out: str | Path) -> dict:
         "n_gated": int(found["gated"].astype(bool).sum()),
         "ci_method": rep["ci_method"],
         "confidence": rep["confidence"],
+        "search_mode": config["search"].get("mode", "full"),
+        "background_chunks": int((pd.read_parquet(out / "plan" / "chunks.parquet")
+                                  .get("kind", pd.Series(dtype=str)) == "background").sum()),
         "thresholds": th.to_dict("records"),
         "found_fraction": {f"{int(k[0])}:{int(k[1])}": float(v) for k, v in
                            found.groupby(["injected_overtones", "template_overtones"])

@@ -55,6 +55,7 @@ Example campaign file::
     veto = true            # chi-squared signal-consistency veto ...
     veto_bins = 8          # ... in 8 time slices
     tolerance_s = 0.01     # timing allowance added to the light-travel time
+    mode = "at-times"      # search around each injection; background searched once
 
     [threshold]
     snr = 7.0
@@ -546,6 +547,10 @@ def _read_search(t: _Table, origin: str, base: Path) -> dict:
     s["tolerance_s"] = t.number("tolerance_s", 0.01, lo=0, hi=1)
     s["cluster_window_s"] = t.number("cluster_window_s", None, lo=0, lo_open=True)
     s["match_window_s"] = t.number("match_window_s", 0.01, lo=0)
+    # "at-times": injection chunks are searched only around each injection and the
+    # background comes from searching the data without injections once; "full":
+    # every chunk is searched whole, with its own time slides (for checking)
+    s["mode"] = t.string("mode", "at-times", choices=("at-times", "full"))
     s["f_high"] = t.number("f_high", None, lo=0, lo_open=True)
     s["max_templates"] = t.number("max_templates", 20000, lo=1, integer=True)
     t.finish()
@@ -568,6 +573,14 @@ def _read_threshold(t: _Table, origin: str) -> dict:
     # None: chosen by the search engine (longer than the coincidence window, the
     # longest template and the clustering window)
     th["slide_step_s"] = t.number("slide_step_s", None, lo=0, lo_open=True)
+    # background searched once (search.mode = "at-times"): enough synthetic noise-only
+    # data for this relative standard error of the FAR at the threshold, or a given
+    # amount of background time, capped at max_background_chunks
+    th["background_precision"] = t.number("background_precision", 0.3, lo=0, lo_open=True,
+                                          hi=1)
+    th["background_s"] = t.number("background_s", None, lo=0, lo_open=True)
+    th["max_background_chunks"] = t.number("max_background_chunks", 200, lo=1, hi=100000,
+                                           integer=True)
     t.finish()
     return th
 

@@ -434,6 +434,68 @@ def match_injections(result, inj_table: pd.DataFrame, window_s: float, gates: di
     return pd.DataFrame(rows)
 
 
+def _engine_tables(res, n_tpl: int) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The engine's time-slide events and each slide's coincident seconds, as chunk tables."""
+    bg = res.background
+    events = pd.DataFrame({"template_overtones": n_tpl,
+                           "slide": bg["slide"].to_numpy(np.int64),
+                           "stat": bg["network_snr"].to_numpy(float)})
+    # time slides need two detectors; one detector's slides table is its zero lag only
+    sl = res.slides[res.slides["slide"] > 0]
+    live = pd.DataFrame({"template_overtones": n_tpl, "slide": sl["slide"].to_numpy(np.int64),
+                         "live_time_s": sl["live_s"].to_numpy(float)})
+    return events, live
+
+
+def injection_regions(config: dict, inj_table: pd.DataFrame, cluster_window_s: float
+                      ) -> dict:
+    """Per detector, the start times the at-times search covers: around every arrival.
+
+    Each injection's arrival at the detector, widened by the match window,
+    the largest light-travel time plus timing tolerance (the other detectors'
+    peaks), and four cluster windows (the clustering's reach), so the
+    candidates near the arrival are those of the whole-series search.
+    """
+    from gwpy.segments import Segment, SegmentList
+
+    from ringsearch.search.network import coincidence_windows
+
+    dets = list(config["data"]["detectors"])
+    s = config["search"]
+    widest = max(coincidence_windows(dets, s["tolerance_s"]).values(), default=0.0)
+    half = s["match_window_s"] + widest + 4 * cluster_window_s
+    return {d: SegmentList(Segment(t - half, t + half)
+                           for t in inj_table[f"arrival_gps_{d}"].to_numpy(float)).coalesce()
+            for d in dets}
+
+
+def background_chunk(config: dict, chunk: dict) -> dict[str, pd.DataFrame]:
+    """Search a data stretch without injections, whole, with its time slides.
+
+    The background of an at-times campaign: every template overtone count's
+    time-slide events and the slides' coincident seconds; avoided windows
+    (known events) are kept out of the slides.
+    """
+    from ringsearch.search.engine import Search
+
+    raw = chunk_strain(config, chunk)
+    counts = template_overtones(config)
+    shared = chunk.get("shared")
+    first = Search(search_config(config, counts[0]),
+                   bank=campaign_bank(config, counts[0], shared))
+    psds = chunk_psds(config, raw, first)
+    conds = first.condition(raw, psds=psds)
+    avoid = {d: [tuple(w) for w in config["data"]["avoid"]] for d in config["data"]["detectors"]}
+    events, live = [], []
+    for n_tpl in counts:
+        engine = Search(search_config(config, n_tpl), bank=campaign_bank(config, n_tpl, shared))
+        e, lt = _engine_tables(engine.run(conds, background_exclude=avoid), n_tpl)
+        events.append(e)
+        live.append(lt)
+    return {"background": pd.concat(events, ignore_index=True),
+            "livetime": pd.concat(live, ignore_index=True)}
+
+
 def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, pd.DataFrame]:
     """Inject, search (with the search engine) and match one chunk.
 
@@ -441,16 +503,22 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     times, derived distance, true f and tau; with ``[overtones]`` enabled also
     the overtone evidence, see :func:`overtone_evidence_rows`), ``found`` (per
     injection and template overtone count: the matched candidate's ranking
-    statistic, its template and per-detector SNRs), ``candidates`` (every
-    zero-lag candidate of the engine), ``background`` (the engine's time-slide
-    events: ``template_overtones, slide, stat``) and ``livetime`` (each
-    slide's coincident seconds).
+    statistic, its template and per-detector SNRs), ``candidates`` (the
+    engine's zero-lag candidates), and with ``search.mode = "full"``
+    ``background`` (the engine's time-slide events: ``template_overtones,
+    slide, stat``) and ``livetime`` (each slide's coincident seconds).  In the
+    default at-times mode the engine searches only around each injection
+    (:func:`injection_regions`) and the background comes from the campaign's
+    background units (:func:`background_chunk`, run for chunks of ``kind``
+    "background").
 
     Examples
     --------
     >>> tables = run_chunk(spec.config, chunks.iloc[0].to_dict(), inj_of_chunk0)
     ... # doctest: +SKIP
     """
+    if chunk.get("kind") == "background":
+        return background_chunk(config, chunk)
     from ringsearch.data.inject import inject
     from ringsearch.data.injections import make_sources
     from ringsearch.search.engine import Search
@@ -479,22 +547,22 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
         engine = Search(search_config(config, n_tpl), bank=bank)
         if conds is None:  # the conditioning does not depend on the templates
             conds = engine.condition(injected, psds=psds)
-        exclude = background_exclusions(config, inj_table, float(bank.duration_s.max()))
-        res = engine.run(conds, background_exclude=exclude)
+        if search["mode"] == "full":
+            exclude = background_exclusions(config, inj_table, float(bank.duration_s.max()))
+            res = engine.run(conds, background_exclude=exclude)
+            e, lt = _engine_tables(res, n_tpl)
+            bg_rows.append(e)
+            live_rows.append(lt)
+        else:
+            regions = injection_regions(config, inj_table, engine.cluster_window(bank))
+            res = engine.run(conds, at=regions)
         gates = {d: c.gates for d, c in conds.items()}
         found.append(match_injections(res, inj_table, search["match_window_s"], gates)
                      .assign(template_overtones=n_tpl))
         cand_rows.append(res.candidates.assign(template_overtones=n_tpl))
-        bg = res.background
-        bg_rows.append(pd.DataFrame({"template_overtones": n_tpl,
-                                     "slide": bg["slide"].to_numpy(np.int64),
-                                     "stat": bg["network_snr"].to_numpy(float)}))
-        # time slides need two detectors; one detector's slides table is its zero lag only
-        sl = res.slides[res.slides["slide"] > 0]
-        live_rows.append(pd.DataFrame({"template_overtones": n_tpl,
-                                       "slide": sl["slide"].to_numpy(np.int64),
-                                       "live_time_s": sl["live_s"].to_numpy(float)}))
-    return {"injections": inj_table, "found": pd.concat(found, ignore_index=True),
-            "candidates": pd.concat(cand_rows, ignore_index=True),
-            "background": pd.concat(bg_rows, ignore_index=True),
-            "livetime": pd.concat(live_rows, ignore_index=True)}
+    tables = {"injections": inj_table, "found": pd.concat(found, ignore_index=True),
+              "candidates": pd.concat(cand_rows, ignore_index=True)}
+    if bg_rows:
+        tables["background"] = pd.concat(bg_rows, ignore_index=True)
+        tables["livetime"] = pd.concat(live_rows, ignore_index=True)
+    return tables

@@ -206,8 +206,15 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
                  chunk_s: float | None = None, batch: int | None = None,
                  progress: bool = False, block_chunks: int = 32,
                  gps_window: tuple[float, float] | None = None,
+                 regions: Any = None,
                  precision: str = "single") -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per-template maxima of the on-grid projection SNR above threshold.
+
+    With ``regions`` (a SegmentList of GPS start times) only start times in
+    them are filtered, each region widened to whole time bins and correlated
+    in short chunks of its own: the maxima of a bin are those of the whole
+    series (the same correlations, of the same data), at a cost that follows
+    the regions' length instead of the data's.
 
     ``weighted`` is the doubly whitened series ``x = H w`` of
     :func:`ringsearch.search.probe.doubly_whitened` and ``grams`` the
@@ -240,6 +247,28 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     longest = float(DECAY_TIMES * tau.max())
     plan = plan_chunks(vals.size, fs, longest, 0, chunk_s)
     ok_t0 = start_mask(cond, longest, gps_window)
+    wbin = max(1, int(round(bin_s * fs)))
+    spans: list[tuple[int, int]] = []
+    if regions is not None:
+        from ringsearch.data.segments import sample_range
+
+        inside = np.zeros(vals.size, bool)
+        for seg in regions:
+            a, b = sample_range(seg, t0, fs)
+            a, b = max((a // wbin) * wbin, 0), min(-(-b // wbin) * wbin, vals.size)
+            if b > a:
+                inside[a:b] = True
+        ok_t0 &= inside
+        edges = np.flatnonzero(np.diff(np.concatenate(([0], inside.view(np.int8), [0]))))
+        spans = list(zip(edges[::2].tolist(), edges[1::2].tolist(), strict=True))
+        if not ok_t0.any():
+            empty = pd.DataFrame({"template_index": pd.Series(dtype=int),
+                                  "sample": pd.Series(dtype=np.int64),
+                                  "gps": pd.Series(dtype=float),
+                                  "snr_grid": pd.Series(dtype=float)})
+            templates = pd.DataFrame({"cond_gram": grams.cond, "refused": grams.reason})
+            templates.attrs["analysed_s"] = 0.0
+            return empty, templates
     if not ok_t0.any():
         raise InputError(f"no analysable time of {getattr(cond, 'detector', '?')} is long "
                          "enough for the longest template (inside the GPS window).")
@@ -247,27 +276,32 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
         raise InputError(f"precision must be 'single' or 'double', got {precision!r}.")
     real = np.float32 if precision == "single" else np.float64
     cplx = np.complex64 if precision == "single" else np.complex128
-    # only chunks holding valid start times are filtered (e.g. a short GPS window)
-    valid = np.flatnonzero(ok_t0)
-    first_c, last_c = valid[0] // plan.step, valid[-1] // plan.step
-    if plan.n_chunks == 1 and valid[-1] - valid[0] + plan.tail + 1 < 0.5 * plan.n_fft:
-        # one FFT over the whole data would be mostly wasted: re-plan on the valid span
-        sub = plan_chunks(valid[-1] - valid[0] + 1, fs, longest, 0, chunk_s)
-        offset = valid[0]
-        plan = FilterPlan(sub.n_fft, sub.step, 0, sub.tail, sub.n_chunks)
-        first_c, last_c = 0, sub.n_chunks - 1
+    # chunks start on bin boundaries and hold whole bins, so no bin is split between two
+    # chunks and a bin's maximum is the same however the data are chunked
+    if spans:
+        # short chunks of one length per call (templates' spectra are shared), covering
+        # each region; a chunk holds at most 8 s of start times
+        widest = min(max(b - a for a, b in spans), int(8 * fs))
+        n_fft = scipy.fft.next_fast_len(-(-widest // wbin) * wbin + plan.tail, real=True)
+        plan = FilterPlan(n_fft, n_fft - plan.tail, 0, plan.tail, 0)
     else:
-        offset = 0
+        valid = np.flatnonzero(ok_t0)
+        spans = [((valid[0] // wbin) * wbin, valid[-1] + 1)]
+        if plan.n_chunks == 1 and spans[0][1] - spans[0][0] + plan.tail + wbin < \
+                0.5 * plan.n_fft:
+            # one FFT over the whole data would be mostly wasted: re-plan on the valid span
+            plan = plan_chunks(spans[0][1] - spans[0][0] + wbin, fs, longest, 0, chunk_s)
+    step = max(wbin, (plan.step // wbin) * wbin)
+    plan = FilterPlan(plan.n_fft, step, 0, plan.tail, 0)
+    starts = [st for a, b in spans for st in range(a, b, step)]
     if batch is None:
         # keep the (batch, 2K, n_fft) correlation block near 32 MB
         batch = int(max(1, min(256, (8 // np.dtype(real).itemsize) * 4_000_000
                                // (k2 * plan.n_fft))))
-    wbin = max(1, int(round(bin_s * fs)))
     thr2 = float(snr_threshold) ** 2
     out: list[np.ndarray] = []
     from tqdm import tqdm
 
-    starts = [offset + c * plan.step for c in range(first_c, last_c + 1)]
     blocks = [starts[i:i + block_chunks] for i in range(0, len(starts), block_chunks)]
     bar = tqdm(total=len(blocks) * nt, desc=f"filtering {getattr(cond, 'detector', '')}",
                unit=" templates", disable=not progress, leave=False)

@@ -73,6 +73,9 @@ from ringsearch.search.veto import (
 #: Time slides asked for by default (capped by what the data can hold).
 DEFAULT_SLIDES: int = 100
 
+#: The method of a search restricted to requested start times (no FAR).
+AT_TIMES_METHOD = "at requested times (no time slides, no FAR)"
+
 
 @dataclass(frozen=True)
 class SearchConfig:
@@ -326,6 +329,8 @@ class SearchResult:
         if self.method == SLIDES_METHOD:
             s = self.slides
             return float(s.loc[s["slide"] > 0, "live_s"].sum()) if len(s) else 0.0
+        if self.method == AT_TIMES_METHOD:
+            return 0.0
         return float(next(iter(self.analysed_s.values()), 0.0))
 
     def far(self, statistic: Any) -> np.ndarray:
@@ -635,8 +640,12 @@ class Search:
                 for d, c in conds.items()}
 
     def triggers(self, conds: Mapping[str, Any], bank: Bank, probes: Mapping[str, Probe],
-                 progress: bool = False) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
+                 progress: bool = False, regions: Mapping[str, Any] | None = None
+                 ) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
         """Every detector's triggers with ids, the refused templates and the analysed time.
+
+        With ``regions`` (detector -> SegmentList of start times) only those
+        start times are filtered (see :meth:`run`'s ``at``).
 
         Examples
         --------
@@ -651,7 +660,8 @@ class Search:
             peaks, tmpl = filter_peaks(c, bank.f_hz, bank.tau_s, thr * GRID_MARGIN,
                                        window / 2, weighted=probes[d].weighted,
                                        grams=probes[d].grams, progress=progress,
-                                       gps_window=self._gps_window())
+                                       gps_window=self._gps_window(),
+                                       regions=None if regions is None else regions.get(d, []))
             analysed[d] = float(tmpl.attrs["analysed_s"])
             bad = tmpl[tmpl.refused != ""]
             refused.append(pd.DataFrame({
@@ -701,6 +711,7 @@ class Search:
     def run(self, data: Any, *, progress: bool = False,
             psds: Mapping[str, Any] | None = None,
             background_exclude: Mapping[str, Any] | None = None,
+            at: Mapping[str, Any] | None = None,
             detector: str | None = None, sample_rate: float | None = None,
             data_start: float | None = None) -> SearchResult:
         """Search strain for ringdowns and rank candidates by false-alarm rate.
@@ -718,6 +729,13 @@ class Search:
             Times kept out of the time-slide background (not out of the zero
             lag), e.g. around known signals or injections; the slides'
             coincident time shrinks accordingly.
+        at : mapping detector -> SegmentList, optional
+            Search only these start times (e.g. around injections): the
+            candidates there are those of the whole-series search (the same
+            bins, refinement, veto and network statistic; give each region a
+            few cluster windows of margin around the times of interest, since
+            clustering looks that far).  No time slides are made and no FAR is
+            given: campaigns take it from a background searched once.
         detector, sample_rate, data_start : optional
             For strain files that do not describe themselves (file paths only).
 
@@ -735,10 +753,13 @@ class Search:
         cfg = self.config
         dets = list(conds)
         probes = self.probes(conds, bank)
-        trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress)
+        trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress,
+                                                regions=at)
         window = self.cluster_window(bank)
         extra: dict[str, Any] = {}
         valid = {d: self._valid(c, bank) for d, c in conds.items()}
+        if at is not None:
+            return self._at_times(conds, bank, probes, trig, refused, analysed, valid)
         if len(dets) == 1:
             d = dets[0]
             cands = single_detector_far(trig, analysed[d], column="snr_reweighted")
@@ -792,6 +813,29 @@ class Search:
                             analysed, SLIDES_METHOD, probes, extra, valid)
 
 
+    def _at_times(self, conds, bank, probes, trig, refused, analysed, valid) -> SearchResult:
+        """The zero-lag candidates of a search restricted to requested start times."""
+        cfg = self.config
+        dets = list(conds)
+        window = self.cluster_window(bank)
+        if len(dets) == 1:
+            cands = trig.copy()
+            cands.insert(2, "network_snr", cands["snr_reweighted"])
+        else:
+            zero = slide_plan(valid, 0, 1.0)[0]
+            cands = network_events(probes, trig, zero, cfg.tolerance_s, window, bank,
+                                   bank.on_box_edge())
+        for col in FAR_COLUMNS:
+            cands[col] = pd.Series(np.nan, index=cands.index, dtype=float)
+        cands = cands.sort_values("network_snr", ascending=False,
+                                  kind="stable").reset_index(drop=True)
+        slides = pd.DataFrame({"slide": [0], **{f"shift_{d}_s": [0.0] for d in dets},
+                               "live_s": [min(analysed.values())]})
+        extra = {"note": "searched at requested times only: no time slides, no FAR"}
+        return SearchResult(cfg, bank, conds, trig, cands, _empty_background(dets), slides,
+                            refused, analysed, AT_TIMES_METHOD, probes, extra, valid)
+
+
 def _empty_background(dets: list[str]) -> pd.DataFrame:
     from ringsearch.search.network import _columns
 
@@ -832,6 +876,11 @@ def _summary(res: SearchResult) -> dict:
                         "tolerance (no detector left out)")})
         if "note" in res.extra:
             sig["note"] = res.extra["note"]
+    elif len(dets) > 1:
+        sig["network_statistic"] = (
+            f"sqrt of the sum over detectors of the squared {veto_text} of one template "
+            "within the light-travel time plus the timing tolerance")
+        sig["note"] = res.extra.get("note")
     else:
         sig["network_statistic"] = f"single-detector {veto_text}"
     mm = float(bank.meta.get("min_match", cfg.min_match))
