@@ -362,7 +362,8 @@ def background_chunks_needed(spec: CampaignSpec) -> int:
     ``threshold.background_precision`` = p asks for ``n = 1/p^2``, that is
     ``T = 1 / (p^2 F)`` seconds of background, or ``threshold.background_s``
     seconds when given.  A stretch of ``chunk_s`` gives about
-    ``(chunk_s - 2 pad_s) x slides`` of it.  Campaigns with an SNR threshold
+    ``(chunk_s - psd_seglen_s - 1) x slides`` of it (the conditioning drops
+    half a whitening filter and a taper at each end).  Campaigns with an SNR threshold
     and no ``background_s`` need none; the count is capped by
     ``threshold.max_background_chunks`` (the results then state the precision
     reached).
@@ -388,7 +389,7 @@ def background_chunks_needed(spec: CampaignSpec) -> int:
         needed = YEAR_S / (th["background_precision"] ** 2 * th["far_per_year"])
     else:
         return 0
-    per_chunk = max(data["chunk_s"] - 2 * data["pad_s"], 1.0) * max(th["slides"], 1)
+    per_chunk = max(data["chunk_s"] - data["psd_seglen_s"] - 1.0, 1.0) * max(th["slides"], 1)
     return int(min(math.ceil(needed / per_chunk), th["max_background_chunks"]))
 
 
