@@ -37,19 +37,22 @@ def as_segments(segments: Any) -> Any:
 def segments_from_mask(mask: Any, t0: float, sample_rate: float) -> Any:
     """Segments covering the samples where ``mask`` is true (sample j spans one sample period).
 
+    The runs of true samples are found with numpy (their edges in one pass);
+    gwpy's ``StateTimeSeries.to_dqflag`` gives the same segments but walks the
+    mask sample by sample in Python (seconds for a day of 4096 Hz data).
+
     Examples
     --------
     >>> list(segments_from_mask([0, 1, 1, 0, 1], 10.0, 2.0))
     [Segment(10.5, 11.5), Segment(12.0, 12.5)]
     """
-    from gwpy.segments import SegmentList
-    from gwpy.timeseries import StateTimeSeries
+    from gwpy.segments import Segment, SegmentList
 
     m = np.asarray(mask, dtype=bool)
-    if not m.any():
-        return SegmentList()
-    state = StateTimeSeries(m, t0=float(t0), sample_rate=float(sample_rate))
-    return SegmentList(state.to_dqflag(round=False).active).coalesce()
+    edges = np.flatnonzero(np.diff(np.concatenate(([0], m.view(np.int8), [0]))))
+    dt = 1.0 / float(sample_rate)
+    return SegmentList(Segment(float(t0) + a * dt, float(t0) + b * dt)
+                       for a, b in zip(edges[::2], edges[1::2], strict=True)).coalesce()
 
 
 def sample_range(segment: Any, t0: float, sample_rate: float,
