@@ -100,7 +100,8 @@ def main(argv: list[str] | None = None) -> int:
             for count in args.counts:
                 walls = {}
                 for workers in args.workers:
-                    row = run_one(example, count, workers, Path(tmp))
+                    row = run_one(example, count, workers, Path(tmp),
+                                  max_background=1 if args.smoke else None)
                     rows.append(row)
                     print(json.dumps(row), flush=True)
                     walls[workers] = row["wall_s"]
