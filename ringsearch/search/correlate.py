@@ -302,7 +302,10 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     out: list[np.ndarray] = []
     from tqdm import tqdm
 
-    blocks = [starts[i:i + block_chunks] for i in range(0, len(starts), block_chunks)]
+    # chunks whose FFTs share one pass over the templates: at least block_chunks, more
+    # while the block's spectra stay near 64 MB (short chunks of regions)
+    per_block = max(block_chunks, int(64e6 // (plan.n_fft * np.dtype(cplx).itemsize)))
+    blocks = [starts[i:i + per_block] for i in range(0, len(starts), per_block)]
     bar = tqdm(total=len(blocks) * nt, desc=f"filtering {getattr(cond, 'detector', '')}",
                unit=" templates", disable=not progress, leave=False)
     n_sup = min(plan.n_fft, plan.tail + 2)

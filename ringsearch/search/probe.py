@@ -253,18 +253,31 @@ class Probe:
         if not self.grams.ok[index]:
             raise InputError(f"template {index} refused: {self.grams.reason[index]}.")
         basis = basis_waveforms(f, tau, template_samples(tau, fs) + 2, fs)
-        veto = None
-        if self.veto_bins is not None:
-            n = local_grid(tau, fs, self.pad)
-            veto = veto_basis(basis, self._response(n), n, fs, self.pad, self.veto_bins,
-                              self.veto_domain)
-        out = _Prepared(basis, self.grams.cinv[index], veto, float(self.grams.cond[index]))
+        out = _Prepared(basis, self.grams.cinv[index], None, float(self.grams.cond[index]))
         self._cache[index] = out
         self._used += out.nbytes
         while self._used > self._cache_bytes and len(self._cache) > 1:
             _, old = self._cache.popitem(last=False)
             self._used -= old.nbytes
         return out
+
+    def _veto_of(self, index: int, prep: _Prepared) -> VetoBasis:
+        """The template's veto, built on first use (many templates never need one)."""
+        if prep.veto is None:
+            fs = self.sample_rate
+            n = local_grid(self._tau[index], fs, self.pad)
+            prep.veto = veto_basis(prep.basis, self._response(n), n, fs, self.pad,
+                                   self.veto_bins, self.veto_domain)
+            prep.nbytes += prep.veto.weights.nbytes
+            self._used += prep.veto.weights.nbytes
+        return prep.veto
+
+    def _shifted(self, start: int, length: int, frac: float) -> np.ndarray:
+        """``length`` doubly whitened samples from ``start``, delayed by ``frac`` of a sample."""
+        if frac <= 0.0:
+            return self._segment(start, length)
+        j0, h = fractional_delay_taps(frac)
+        return np.correlate(self._segment(start + j0, length + h.size - 1), h, mode="valid")
 
     # ------------------------------------------------------------------ data access
     def _segment(self, start: int, length: int) -> np.ndarray:
@@ -305,11 +318,15 @@ class Probe:
         """
         return self._evaluate(index, int(sample), 0.0)
 
-    def refine(self, index: int, sample: int, lo_s: float = -1.0, hi_s: float = 1.0) -> Peak:
+    def refine(self, index: int, sample: int, lo_s: float = -1.0, hi_s: float = 1.0,
+               veto_from: float = 0.0) -> Peak:
         """The best start of template ``index`` within [sample + lo_s, sample + hi_s] samples.
 
         ``lo_s`` and ``hi_s`` lie in [-1, 1]; ``sample`` should be an on-grid
-        maximum of the SNR (the refinement is a local one).
+        maximum of the SNR (the refinement is a local one).  The chi-squared is
+        evaluated only when the refined SNR reaches ``veto_from`` (below it
+        ``chisq`` is NaN and ``snr_reweighted`` the raw SNR): a peak below the
+        trigger threshold is dropped whatever its chi-squared.
 
         Examples
         --------
@@ -319,10 +336,10 @@ class Probe:
         k = int(sample)
         m = KERNEL_HALF + 1
         y = self._coords(prep, k - m, k + m + 1)  # positions k-m .. k+m
-        return self._refine(index, prep, y, m, k, lo_s, hi_s)
+        return self._refine(index, prep, y, m, k, lo_s, hi_s, veto_from)
 
     def _refine(self, index: int, prep: _Prepared, y: np.ndarray, pos: int, k: int,
-                lo_s: float, hi_s: float) -> Peak:
+                lo_s: float, hi_s: float, veto_from: float = 0.0) -> Peak:
         """Refine around on-grid sample k, which is column ``pos`` of the coordinates ``y``."""
         lo_s, hi_s = max(float(lo_s), -1.0), min(float(hi_s), 1.0)
         if k - 1 < 0 or not self.valid[k - 1]:
@@ -331,7 +348,7 @@ class Probe:
             hi_s = min(hi_s, 0.0)
         m = KERNEL_HALF + 1
         v = y[:, pos - m:pos + m + 1] @ _refine_taps().T  # (2K, grid)
-        rho2 = np.einsum("jg,jg->g", v, v)
+        rho2 = (v * v).sum(axis=0)
         inside = (REFINE_GRID >= lo_s - 1e-12) & (REFINE_GRID <= hi_s + 1e-12)
         if not inside.any():
             x = min(max(0.0, lo_s), hi_s)
@@ -348,7 +365,7 @@ class Probe:
                     x += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) * step
             x = min(max(x, lo_s), hi_s)
         base = k + int(np.floor(x))
-        return self._evaluate(index, base, x - np.floor(x), prep)
+        return self._evaluate(index, base, x - np.floor(x), prep, veto_from)
 
     def peak(self, index: int, gps_lo: float, gps_hi: float) -> Peak | None:
         """The loudest start of template ``index`` in ``[gps_lo, gps_hi]``, refined.
@@ -374,7 +391,7 @@ class Probe:
         m = KERNEL_HALF + 1
         y = self._coords(prep, a - m, b + m + 1)  # positions a-m .. b+m
         core = y[:, m:m + b - a + 1]
-        rho2 = np.einsum("jt,jt->t", core, core)
+        rho2 = (core * core).sum(axis=0)
         rho2[~ok] = -1.0
         i = int(np.argmax(rho2))
         k = a + i
@@ -382,25 +399,27 @@ class Probe:
         x_hi = (gps_hi - self.t0) * fs - k
         return self._refine(index, prep, y, m + i, k, x_lo, x_hi)
 
-    def _evaluate(self, index: int, k: int, frac: float, prep: _Prepared | None = None) -> Peak:
+    def with_veto(self, peak: Peak) -> Peak:
+        """The same peak with its chi-squared and re-weighted SNR (if it was refined without).
+
+        Examples
+        --------
+        >>> probe.with_veto(probe.refine(3, 65536, veto_from=float("inf")))  # doctest: +SKIP
+        """
+        if self.veto_bins is None or peak.chisq_dof > 0:
+            return peak
+        return self._evaluate(peak.template_index, peak.sample, peak.offset)
+
+    def _evaluate(self, index: int, k: int, frac: float, prep: _Prepared | None = None,
+                  veto_from: float = 0.0) -> Peak:
         prep = prep or self.prepared(index)
-        length = prep.basis.shape[1]
-        veto = prep.veto
-        lo = min(0, veto.offset) if veto is not None else 0
-        hi = max(length, veto.offset + veto.weights.shape[1]) if veto is not None else length
-        if frac <= 0.0:
-            seg = self._segment(k + lo, hi - lo)
-        else:
-            j0, h = fractional_delay_taps(frac)
-            raw = self._segment(k + lo + j0, hi - lo + h.size - 1)
-            seg = np.correlate(raw, h, mode="valid")
-        z = prep.basis @ seg[-lo:-lo + length]
+        z = prep.basis @ self._shifted(k, prep.basis.shape[1], frac)
         y = prep.cinv @ z
         snr = float(np.sqrt(y @ y))
         amp = prep.to_amplitude @ z
-        if veto is not None:
-            a = veto.offset - lo
-            r = veto.weights @ seg[a:a + veto.weights.shape[1]]
+        if self.veto_bins is not None and snr >= veto_from:
+            veto = self._veto_of(index, prep)
+            r = veto.weights @ self._shifted(k + veto.offset, veto.weights.shape[1], frac)
             chisq, dof = float(r @ r), int(veto.dof)
             rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
         else:

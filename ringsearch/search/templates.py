@@ -108,7 +108,7 @@ def parseval_gram(v: np.ndarray, n_fft: int) -> np.ndarray:
     True
     """
     vf = np.ascontiguousarray(v).view(np.float64)  # interleaved (re, im)
-    gram = 2.0 * np.einsum("...it,...jt->...ij", vf, vf)
+    gram = 2.0 * np.matmul(vf, np.swapaxes(vf, -1, -2))  # BLAS
     gram -= np.einsum("...i,...j->...ij", v[..., 0], v[..., 0].conj()).real
     if n_fft % 2 == 0:
         gram -= np.einsum("...i,...j->...ij", v[..., -1], v[..., -1].conj()).real
