@@ -78,8 +78,9 @@ def main(argv: list[str] | None = None) -> int:
                         help="numbers of injections per run (default 60 120)")
     parser.add_argument("--workers", type=int, nargs="+", default=[1, 2],
                         help="worker counts (default 1 2)")
-    parser.add_argument("--target-count", type=int, default=24,
-                        help="injections of the target campaign's sample (default 24)")
+    parser.add_argument("--target-count", type=int, default=52,
+                        help="injections of the target campaign's sample, rounded to whole "
+                             "chunks (default 52: two chunks)")
     add_options(parser)
     args = parser.parse_args(argv)
     examples = [ROOT / "injections" / "quick.toml"]
@@ -124,23 +125,30 @@ def main(argv: list[str] | None = None) -> int:
             raw = tomllib.loads(target.read_text())
             full_count = int(raw["injections"]["count"])
             spec_full = spec_from_dict(raw, origin=str(target), base=target.parent)
-            from ringsearch.campaign.draw import background_chunks_needed
+            from ringsearch.campaign.draw import background_chunks_needed, plan_campaign
 
             n_bg_full = background_chunks_needed(spec_full)
-            row = run_one(target, args.target_count, 1, Path(tmp), max_background=1)
+            full_chunks, _ = plan_campaign(spec_full)
+            n_fg_full = int((full_chunks["n_injections"] > 0).sum())
+            per_chunk = int(full_chunks["n_injections"].max())
+            # the sample: whole chunks, filled as the full campaign fills them
+            count = per_chunk * max(1, round(args.target_count / per_chunk))
+            row = run_one(target, count, 1, Path(tmp), max_background=1)
             rows.append(row)
             print(json.dumps(row), flush=True)
-            per_inj = row["foreground_cpu_s"] / args.target_count
+            n_fg = row["chunks"] - row["background_chunks"]
+            per_fg_chunk = row["foreground_cpu_s"] / n_fg
             per_bg = row["background_cpu_s"] / max(row["background_chunks"], 1)
-            total = per_inj * full_count + per_bg * n_bg_full
+            total = per_fg_chunk * n_fg_full + per_bg * n_bg_full
             out.add("target_templates", row["templates"], "", "target: templates in the bank")
-            out.add("target_fg_cpu_per_injection", per_inj, "CPU s",
-                    f"target: CPU per injection ({args.target_count} measured)")
+            out.add("target_fg_cpu_per_injection", row["foreground_cpu_s"] / count, "CPU s",
+                    f"target: CPU per injection ({count} measured in {n_fg} chunks of "
+                    f"{per_chunk})")
             out.add("target_bg_cpu_per_unit", per_bg, "CPU s",
                     "target: CPU per background unit (64 s, 200 slides)")
             out.add("target_total_cpu_s", total, "CPU s",
-                    f"target: {full_count} injections + {n_bg_full} background units "
-                    "(extrapolated)")
+                    f"target: {full_count} injections in {n_fg_full} chunks + {n_bg_full} "
+                    "background units (extrapolated per chunk)")
             out.add("target_wall_2_cores_min", total / 2 / 60, "min",
                     "target: wall time on 2 cores (extrapolated, perfect scaling)")
     print()

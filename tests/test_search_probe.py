@@ -48,6 +48,40 @@ def test_interpolator_reconstructs_band_limited_data():
             assert abs(h @ x[j0:j0 + h.size] - exact[k]) < 2e-5
 
 
+def test_start_between_samples_equals_the_template_on_delayed_data():
+    # The probe evaluates a start between samples by interpolating the correlations at the
+    # 2M samples around it.  By linearity that equals correlating the raw template with
+    # the doubly whitened data delayed by the same fraction (np.correlate with the taps),
+    # computed here directly, one peak at a time; refining many peaks at once
+    # (refine_many) must give the numbers of refining each alone, and of evaluating
+    # afresh at the refined start.
+    rng = np.random.default_rng(7)
+    cond = white_data(8.0, FS, rng, f_high=900.0)
+    f = np.array([[250.0, 240.0], [120.0, 115.0]])
+    tau = np.array([[0.004, 0.0013], [0.009, 0.003]])
+    probe = Probe(cond, f, tau, veto_bins=None)
+    x = probe.weighted
+    for index in (0, 1):
+        basis = probe.prepared(index).basis
+        for k, frac in ((5000, 0.0), (7001, 0.3), (9003, 0.71)):
+            pk = probe._evaluate(index, np.array([k]), np.array([frac]))[0]
+            j0, h = fractional_delay_taps(frac)
+            delayed = np.correlate(x[k + j0:k + j0 + basis.shape[1] + h.size - 1], h, "valid")
+            y = probe.grams.cinv[index] @ (basis @ delayed)
+            assert abs(pk.snr - np.sqrt(y @ y)) < 1e-10 * max(pk.snr, 1.0)
+        samples = [4000, 4100, 6000, 10001]
+        many = probe.refine_many(index, samples)
+        for s, pk in zip(samples, many, strict=True):
+            one = probe.refine(index, s)
+            assert one.gps == pk.gps and one.sample == pk.sample
+            assert abs(one.snr - pk.snr) < 1e-12 * max(pk.snr, 1.0)
+            # the refinement's reuse of its correlations against a fresh evaluation there
+            again = probe._evaluate(index, np.array([pk.sample]), np.array([pk.offset]))[0]
+            assert abs(again.snr - pk.snr) < 1e-10 * max(pk.snr, 1.0)
+            np.testing.assert_allclose(again.amplitudes, pk.amplitudes, rtol=1e-8,
+                                       atol=1e-12 * np.abs(pk.amplitudes).max())
+
+
 def _injected_at_offsets(offsets, snr, rng, n_each=6, f=250.0, tau=0.004):
     """White stand-in data with pure (2,2,0)-like ringdowns starting `offset` of a sample
     after a sample, 2 s apart; returns (cond, starts in s from t0, offsets per injection)."""

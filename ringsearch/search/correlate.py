@@ -332,22 +332,25 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
                 if not mask.any():
                     continue
                 y = scipy.fft.irfft(spec * wspec[c], plan.n_fft, axis=-1)[:, :, :b_rel]
-                rho2 = np.einsum("bij,bij->bj", y, y).astype(np.float64)
+                rho2 = np.einsum("bij,bij->bj", y, y)
                 rho2[:, ~mask] = -1.0
-                # maxima per time bin aligned on global sample numbers
-                first = (s // wbin) * wbin
-                lead = s - first
+                # maxima per time bin aligned on global sample numbers (chunks start on
+                # bin boundaries: only a last, partial bin needs padding)
+                lead = s - (s // wbin) * wbin
                 nb = math.ceil((lead + rho2.shape[1]) / wbin)
-                padded = np.full((rho2.shape[0], nb * wbin), -1.0)
-                padded[:, lead:lead + rho2.shape[1]] = rho2
-                binned = padded.reshape(rho2.shape[0], nb, wbin)
+                if lead or nb * wbin != rho2.shape[1]:
+                    padded = np.full((rho2.shape[0], nb * wbin), -1.0, rho2.dtype)
+                    padded[:, lead:lead + rho2.shape[1]] = rho2
+                    rho2 = padded
+                binned = rho2.reshape(rho2.shape[0], nb, wbin)
                 arg = binned.argmax(axis=-1)
                 peak = np.take_along_axis(binned, arg[..., None], -1)[..., 0]
                 ti, bi = np.nonzero(peak > thr2)
                 if ti.size == 0:
                     continue
                 rel = bi * wbin + arg[ti, bi] - lead  # index from the chunk's start
-                out.append(np.column_stack([good[ti], s + rel, peak[ti, bi]]))
+                out.append(np.column_stack([good[ti], s + rel,
+                                            peak[ti, bi].astype(np.float64)]))
             bar.update(len(idx))
     bar.close()
     arr = np.concatenate(out) if out else np.empty((0, 3))

@@ -96,10 +96,30 @@ def fractional_delay_taps(x: float) -> tuple[int, np.ndarray]:
     (-5, 1.0, True)
     """
     k = int(np.floor(x))
-    j = np.arange(k - KERNEL_HALF + 1, k + KERNEL_HALF + 1)
-    u = x - j
+    return k - KERNEL_HALF + 1, delay_taps(np.array([x - k]))[0]
+
+
+def delay_taps(frac: np.ndarray) -> np.ndarray:
+    """Taps (P, 2M) of :func:`fractional_delay_taps` for fractions ``frac`` in [0, 1).
+
+    Row p interpolates at ``frac[p]`` from the 2M samples at offsets
+    ``-M + 1 .. M``; a fraction of 0 gives exactly one tap of 1.
+
+    Examples
+    --------
+    >>> h = delay_taps(np.array([0.0, 0.5]))
+    >>> h.shape, float(h[0, KERNEL_HALF - 1]), float(h[1].sum().round(4))
+    ((2, 32), 1.0, 1.0)
+    """
+    frac = np.asarray(frac, float)
+    u = frac[:, None] - np.arange(-KERNEL_HALF + 1, KERNEL_HALF + 1)
     w = i0(KAISER_BETA * np.sqrt(np.clip(1.0 - (u / KERNEL_HALF) ** 2, 0.0, None)))
-    return k - KERNEL_HALF + 1, np.sinc(u) * w / i0(KAISER_BETA)
+    out = np.sinc(u) * w / i0(KAISER_BETA)
+    on_sample = frac == 0.0
+    if on_sample.any():  # sin(pi n) is not exactly 0 in floating point
+        out[on_sample] = 0.0
+        out[on_sample, KERNEL_HALF - 1] = 1.0
+    return out
 
 
 _REFINE_TAPS: dict[int, np.ndarray] = {}
@@ -142,7 +162,7 @@ class Peak:
 
 
 class _Prepared:
-    __slots__ = ("basis", "cinv", "to_amplitude", "veto", "cond", "nbytes")
+    __slots__ = ("basis", "cinv", "to_amplitude", "veto", "cond", "nbytes", "spectra")
 
     def __init__(self, basis: np.ndarray, cinv: np.ndarray, veto: VetoBasis | None,
                  cond: float):
@@ -152,6 +172,7 @@ class _Prepared:
         self.veto = veto
         self.cond = cond
         self.nbytes = self.basis.nbytes + (veto.weights.nbytes if veto is not None else 0)
+        self.spectra: dict[int, np.ndarray] = {}  # conj(rfft(basis, n)) by n
 
 
 def doubly_whitened(cond: Any) -> np.ndarray:
@@ -272,27 +293,44 @@ class Probe:
             self._used += prep.veto.weights.nbytes
         return prep.veto
 
-    def _shifted(self, start: int, length: int, frac: float) -> np.ndarray:
-        """``length`` doubly whitened samples from ``start``, delayed by ``frac`` of a sample."""
-        if frac <= 0.0:
-            return self._segment(start, length)
-        j0, h = fractional_delay_taps(frac)
-        return np.correlate(self._segment(start + j0, length + h.size - 1), h, mode="valid")
-
-    # ------------------------------------------------------------------ data access
-    def _segment(self, start: int, length: int) -> np.ndarray:
-        out = np.zeros(length)
-        a, b = max(start, 0), min(start + length, self.weighted.size)
-        if b > a:
-            out[a - start:b - start] = self.weighted[a:b]
+    def _shifted(self, starts: np.ndarray, length: int, fracs: np.ndarray) -> np.ndarray:
+        """(P, length) doubly whitened samples from each ``starts[p]``, delayed by ``fracs[p]``
+        of a sample (Kaiser-windowed sinc, :func:`delay_taps`)."""
+        out = self._segments(starts, length)
+        moving = fracs > 0.0
+        if moving.any():
+            taps = delay_taps(fracs[moving])
+            seg = self._segments(starts[moving] - KERNEL_HALF + 1,
+                                 length + 2 * KERNEL_HALF - 1)
+            win = np.lib.stride_tricks.sliding_window_view(seg, 2 * KERNEL_HALF, axis=-1)
+            out[moving] = np.einsum("pli,pi->pl", win, taps)
         return out
 
-    def _coords(self, prep: _Prepared, lo: int, hi: int) -> np.ndarray:
-        """Projection coordinates y (2K, hi - lo) at the on-grid start samples lo..hi-1."""
+    # ------------------------------------------------------------------ data access
+    def _segments(self, starts: np.ndarray, length: int) -> np.ndarray:
+        """(P, length) doubly whitened samples from each ``starts[p]``, zero outside the data."""
+        idx = np.asarray(starts, np.int64)[:, None] + np.arange(length)
+        n = self.weighted.size
+        inside = (idx >= 0) & (idx < n)
+        return np.where(inside, self.weighted[np.clip(idx, 0, n - 1)], 0.0)
+
+    def _correlations(self, prep: _Prepared, starts: np.ndarray, n_pos: int) -> np.ndarray:
+        """Correlations z (P, 2K, n_pos) of the raw basis at on-grid starts ``starts[p] + i``.
+
+        One short FFT correlation per start (exact: the grid holds the
+        positions and the template without wrapping around); the projection
+        coordinates are ``y = C^{-1} z``.
+        """
         length = prep.basis.shape[1]
-        seg = self._segment(lo, hi - lo + length - 1)
-        windows = np.lib.stride_tricks.sliding_window_view(seg, length)  # (hi - lo, L)
-        return prep.cinv @ (prep.basis @ windows.T)
+        n = scipy.fft.next_fast_len(n_pos + length, real=True)
+        seg = self._segments(starts, n_pos + length - 1)
+        basis_spec = prep.spectra.get(n)
+        if basis_spec is None:  # kept with the template (counted in the cache's budget)
+            basis_spec = prep.spectra[n] = np.conj(scipy.fft.rfft(prep.basis, n, axis=-1))
+            prep.nbytes += basis_spec.nbytes
+            self._used += basis_spec.nbytes
+        spec = scipy.fft.rfft(seg, n, axis=-1)[:, None, :] * basis_spec
+        return scipy.fft.irfft(spec, n, axis=-1)[..., :n_pos]
 
     # ------------------------------------------------------------------ evaluation
     def at(self, index: int, gps: float) -> Peak:
@@ -307,7 +345,7 @@ class Probe:
         if not (0 <= k < self.values.size and self.valid[k]):
             raise InputError(f"start time {gps} is not a valid start time of the "
                              f"{self.detector} data.")
-        return self._evaluate(index, k, max(x - k, 0.0))
+        return self._evaluate(index, np.array([k]), np.array([max(x - k, 0.0)]))[0]
 
     def at_sample(self, index: int, sample: int) -> Peak:
         """Template ``index`` evaluated with its start on data sample ``sample``.
@@ -316,7 +354,7 @@ class Probe:
         --------
         >>> probe.at_sample(3, 65536).snr  # doctest: +SKIP
         """
-        return self._evaluate(index, int(sample), 0.0)
+        return self._evaluate(index, np.array([int(sample)]), np.zeros(1))[0]
 
     def refine(self, index: int, sample: int, lo_s: float = -1.0, hi_s: float = 1.0,
                veto_from: float = 0.0) -> Peak:
@@ -332,40 +370,47 @@ class Probe:
         --------
         >>> probe.refine(3, 65536).offset  # doctest: +SKIP
         """
-        prep = self.prepared(index)
-        k = int(sample)
-        m = KERNEL_HALF + 1
-        y = self._coords(prep, k - m, k + m + 1)  # positions k-m .. k+m
-        return self._refine(index, prep, y, m, k, lo_s, hi_s, veto_from)
+        return self.refine_many(index, [sample], lo_s, hi_s, veto_from)[0]
 
-    def _refine(self, index: int, prep: _Prepared, y: np.ndarray, pos: int, k: int,
-                lo_s: float, hi_s: float, veto_from: float = 0.0) -> Peak:
-        """Refine around on-grid sample k, which is column ``pos`` of the coordinates ``y``."""
-        lo_s, hi_s = max(float(lo_s), -1.0), min(float(hi_s), 1.0)
-        if k - 1 < 0 or not self.valid[k - 1]:
-            lo_s = max(lo_s, 0.0)
-        if k + 1 >= self.values.size or not self.valid[k + 1]:
-            hi_s = min(hi_s, 0.0)
+    def refine_many(self, index: int, samples: Any, lo_s: Any = -1.0, hi_s: Any = 1.0,
+                    veto_from: float = 0.0, batch: int = 512) -> list[Peak]:
+        """:meth:`refine` of template ``index`` at many on-grid samples, vectorised.
+
+        ``lo_s``/``hi_s`` are scalars or one value per sample.  The numbers
+        are those of :meth:`refine` one by one (it calls this).
+
+        Examples
+        --------
+        >>> peaks = probe.refine_many(3, [65536, 70000], veto_from=float("inf"))  # doctest: +SKIP
+        """
+        k = np.atleast_1d(np.asarray(samples, np.int64))
+        lo = np.maximum(np.broadcast_to(np.asarray(lo_s, float), k.shape), -1.0)
+        hi = np.minimum(np.broadcast_to(np.asarray(hi_s, float), k.shape), 1.0)
+        if k.size == 0:
+            return []
+        prep = self.prepared(index)
+        n = self.values.size
+        before_ok = (k >= 1) & self.valid[np.clip(k - 1, 0, n - 1)]
+        after_ok = (k + 1 < n) & self.valid[np.clip(k + 1, 0, n - 1)]
+        lo = np.where(before_ok, lo, np.maximum(lo, 0.0))
+        hi = np.where(after_ok, hi, np.minimum(hi, 0.0))
         m = KERNEL_HALF + 1
-        v = y[:, pos - m:pos + m + 1] @ _refine_taps().T  # (2K, grid)
-        rho2 = (v * v).sum(axis=0)
-        inside = (REFINE_GRID >= lo_s - 1e-12) & (REFINE_GRID <= hi_s + 1e-12)
-        if not inside.any():
-            x = min(max(0.0, lo_s), hi_s)
-        else:
-            rho2 = np.where(inside, rho2, -np.inf)
-            i = int(np.argmax(rho2))
-            x = float(REFINE_GRID[i])
-            if 0 < i < REFINE_GRID.size - 1 and inside[i - 1] and inside[i + 1]:
-                # the vertex of the parabola through the best grid point and its neighbours
-                a, b, c = rho2[i - 1], rho2[i], rho2[i + 1]
-                den = a - 2 * b + c
-                if den < 0:
-                    step = REFINE_GRID[1] - REFINE_GRID[0]
-                    x += float(np.clip(0.5 * (a - c) / den, -0.5, 0.5)) * step
-            x = min(max(x, lo_s), hi_s)
-        base = k + int(np.floor(x))
-        return self._evaluate(index, base, x - np.floor(x), prep, veto_from)
+        taps = _refine_taps()
+        out: list[Peak] = []
+        for a in range(0, k.size, batch):
+            sl = slice(a, a + batch)
+            z = self._correlations(prep, k[sl] - m, 2 * m + 1)  # positions k-m .. k+m
+            y = np.matmul(prep.cinv, np.matmul(z, taps.T))  # (P, 2K, grid)
+            x = _grid_maximum(np.einsum("pjg,pjg->pg", y, y), lo[sl], hi[sl], REFINE_GRID)
+            floor = np.floor(x)
+            # the start's interpolation taps reach samples base-M+1 .. base+M, columns
+            # (base - k) + 2 .. of z (base - k in {-1, 0, 1})
+            first = floor.astype(np.int64) + m - KERNEL_HALF + 1
+            out += self._evaluate(index, k[sl] + floor.astype(np.int64), x - floor, prep,
+                                  veto_from, z=np.take_along_axis(
+                                      z, (first[:, None] + np.arange(2 * KERNEL_HALF))[:, None],
+                                      axis=2))
+        return out
 
     def peak(self, index: int, gps_lo: float, gps_hi: float) -> Peak | None:
         """The loudest start of template ``index`` in ``[gps_lo, gps_hi]``, refined.
@@ -388,16 +433,11 @@ class Probe:
         if not ok.any():
             return None
         prep = self.prepared(index)
-        m = KERNEL_HALF + 1
-        y = self._coords(prep, a - m, b + m + 1)  # positions a-m .. b+m
-        core = y[:, m:m + b - a + 1]
-        rho2 = (core * core).sum(axis=0)
+        y = prep.cinv @ self._correlations(prep, np.array([a]), b - a + 1)[0]
+        rho2 = (y * y).sum(axis=0)
         rho2[~ok] = -1.0
-        i = int(np.argmax(rho2))
-        k = a + i
-        x_lo = (gps_lo - self.t0) * fs - k
-        x_hi = (gps_hi - self.t0) * fs - k
-        return self._refine(index, prep, y, m + i, k, x_lo, x_hi)
+        k = a + int(np.argmax(rho2))
+        return self.refine(index, k, (gps_lo - self.t0) * fs - k, (gps_hi - self.t0) * fs - k)
 
     def with_veto(self, peak: Peak) -> Peak:
         """The same peak with its chi-squared and re-weighted SNR (if it was refined without).
@@ -408,21 +448,64 @@ class Probe:
         """
         if self.veto_bins is None or peak.chisq_dof > 0:
             return peak
-        return self._evaluate(peak.template_index, peak.sample, peak.offset)
+        return self._evaluate(peak.template_index, np.array([peak.sample]),
+                              np.array([peak.offset]))[0]
 
-    def _evaluate(self, index: int, k: int, frac: float, prep: _Prepared | None = None,
-                  veto_from: float = 0.0) -> Peak:
+    def _evaluate(self, index: int, ks: np.ndarray, fracs: np.ndarray,
+                  prep: _Prepared | None = None, veto_from: float = 0.0,
+                  z: np.ndarray | None = None) -> list[Peak]:
+        """Template ``index`` at starts ``ks[p] + fracs[p]`` samples: SNR, amplitudes, veto.
+
+        The correlations at a start between samples are those of the 2M
+        samples around it interpolated (:func:`delay_taps`), which equals
+        correlating the template with the data delayed by the fraction.
+        ``z`` (P, 2K, 2M): the correlations at starts ``ks - M + 1 .. ks + M``
+        when already computed.
+        """
         prep = prep or self.prepared(index)
-        z = prep.basis @ self._shifted(k, prep.basis.shape[1], frac)
-        y = prep.cinv @ z
-        snr = float(np.sqrt(y @ y))
-        amp = prep.to_amplitude @ z
-        if self.veto_bins is not None and snr >= veto_from:
-            veto = self._veto_of(index, prep)
-            r = veto.weights @ self._shifted(k + veto.offset, veto.weights.shape[1], frac)
-            chisq, dof = float(r @ r), int(veto.dof)
-            rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
-        else:
-            chisq, dof, rw = float("nan"), 0, snr
-        gps = self.t0 + (k + frac) / self.sample_rate
-        return Peak(int(index), int(k), float(frac), float(gps), snr, chisq, dof, rw, amp)
+        if z is None:
+            z = self._correlations(prep, ks - KERNEL_HALF + 1, 2 * KERNEL_HALF)
+        z = np.einsum("pjt,pt->pj", z, delay_taps(fracs))  # (P, 2K)
+        y = z @ prep.cinv.T
+        snrs = np.sqrt(np.einsum("pj,pj->p", y, y))
+        amps = z @ prep.to_amplitude.T
+        gps = self.t0 + (ks + fracs) / self.sample_rate
+        out = []
+        for p in range(ks.size):
+            snr = float(snrs[p])
+            if self.veto_bins is not None and snr >= veto_from:
+                veto = self._veto_of(index, prep)
+                r = veto.weights @ self._shifted(ks[p:p + 1] + veto.offset,
+                                                 veto.weights.shape[1], fracs[p:p + 1])[0]
+                chisq, dof = float(r @ r), int(veto.dof)
+                rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
+            else:
+                chisq, dof, rw = float("nan"), 0, snr
+            out.append(Peak(int(index), int(ks[p]), float(fracs[p]), float(gps[p]), snr,
+                            chisq, dof, rw, amps[p]))
+        return out
+
+
+def _grid_maximum(rho2: np.ndarray, lo: np.ndarray, hi: np.ndarray, grid: np.ndarray
+                  ) -> np.ndarray:
+    """Per row, the offset in [lo, hi] maximising rho2 sampled on ``grid`` (then a parabola).
+
+    The best grid point, moved to the vertex of the parabola through it and
+    its two neighbours when both lie inside the window and it is concave.
+    """
+    inside = (grid >= lo[:, None] - 1e-12) & (grid <= hi[:, None] + 1e-12)
+    r = np.where(inside, rho2, -np.inf)
+    i = np.argmax(r, axis=1)
+    x = grid[i]
+    rows = np.arange(r.shape[0])
+    j = np.clip(i, 1, grid.size - 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a, b, c = r[rows, j - 1], r[rows, j], r[rows, j + 1]
+        den = a - 2 * b + c
+        shift = np.clip(0.5 * (a - c) / den, -0.5, 0.5) * (grid[1] - grid[0])
+    vertex = ((i > 0) & (i < grid.size - 1) & inside[rows, j - 1] & inside[rows, j + 1]
+              & (den < 0))
+    x = np.where(vertex, x + shift, x)
+    x = np.clip(x, lo, hi)
+    empty = ~inside.any(axis=1)
+    return np.where(empty, np.minimum(np.maximum(0.0, lo), hi), x)

@@ -157,30 +157,31 @@ def prepare_templates(f_hz: np.ndarray, tau_s: np.ndarray, response: np.ndarray,
     gram = parseval_gram(v, n_fft)
     sig = np.sqrt(np.clip(np.einsum("bii->bi", gram), 0, None))
     b, k2 = gram.shape[:2]
-    cond = np.full(b, np.inf)
-    ok = np.zeros(b, bool)
-    reason = [""] * b
     chol = np.zeros_like(gram)
     cinv = np.zeros_like(gram)
-    eye = np.eye(k2)
-    for i in range(b):
-        if np.any(sig[i] <= 0):
-            reason[i] = "a mode has no power inside [f_low, f_high]"
-            continue
-        corr = gram[i] / np.outer(sig[i], sig[i])
-        ev = np.linalg.eigvalsh(corr)
-        cond[i] = ev[-1] / ev[0] if ev[0] > 0 else np.inf
-        if not cond[i] <= max_cond:
-            reason[i] = (f"Gram matrix numerically singular (condition number {cond[i]:.3g} "
-                         f"> {max_cond:.0e}): its modes cannot be separated by the data")
-            continue
-        try:
-            chol[i] = np.linalg.cholesky(gram[i])
-        except np.linalg.LinAlgError:
-            reason[i] = "Gram matrix not positive definite"
-            continue
-        cinv[i] = np.linalg.solve(chol[i], eye)
-        ok[i] = True
+    silent = np.any(sig <= 0, axis=1)
+    norm = np.where(silent[:, None], 1.0, sig)
+    corr = gram / (norm[:, :, None] * norm[:, None, :])
+    ev = np.linalg.eigvalsh(corr)  # stacked, one LAPACK call per matrix
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cond = np.where((ev[:, 0] > 0) & ~silent, ev[:, -1] / ev[:, 0], np.inf)
+    ok = ~silent & (cond <= max_cond)
+    reason = ["a mode has no power inside [f_low, f_high]" if silent[i] else
+              "" if ok[i] else
+              (f"Gram matrix numerically singular (condition number {cond[i]:.3g} "
+               f"> {max_cond:.0e}): its modes cannot be separated by the data")
+              for i in range(b)]
+    good = np.flatnonzero(ok)
+    try:
+        chol[good] = np.linalg.cholesky(gram[good])
+    except np.linalg.LinAlgError:  # find the ones that are not positive definite
+        for i in good:
+            try:
+                chol[i] = np.linalg.cholesky(gram[i])
+            except np.linalg.LinAlgError:
+                reason[i], ok[i] = "Gram matrix not positive definite", False
+        good = np.flatnonzero(ok)
+    cinv[good] = np.linalg.solve(chol[good], np.broadcast_to(np.eye(k2), (good.size, k2, k2)))
     # conj(V) in place (flip the imaginary parts of the interleaved view).  The
     # orthonormalisation C^{-1} is applied to the correlations in the time domain, on
     # the valid start times only, which is cheaper than forming C^{-1} V here.

@@ -39,12 +39,6 @@ from ringsearch.search.probe import Peak, Probe
 #: This is part of what a trigger is, in every mode of the search.
 GRID_MARGIN: float = 0.95
 
-#: The lazy refinement orders unrefined peaks by ``snr_grid x LAZY_BOUND``, an
-#: upper bound of their refined SNR (above the largest gain measured, 1.19), so
-#: the kept triggers are those of refining every peak.
-LAZY_BOUND: float = 1.25
-
-
 def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr",
                      time_column: str = "gps") -> pd.DataFrame:
     """Keep the loudest candidate in every time window, across all templates.
@@ -126,14 +120,15 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
 
     ``peaks`` holds per-template on-grid maxima (``template_index``, ``sample``,
     ``snr_grid``) from :func:`ringsearch.search.correlate.filter_peaks`, found
-    with the threshold times :data:`GRID_MARGIN`.  The result is that of
-    refining every peak (start time between samples, SNR, amplitudes,
-    chi-squared), keeping those whose refined SNR reaches ``snr_threshold``
-    and clustering them greedily on ``snr_reweighted`` within
-    ``cluster_window_s`` -- but peaks are refined lazily: in the order of an
-    upper bound of their ranking SNR (``snr_grid x`` :data:`LAZY_BOUND`), and
-    not at all once a kept trigger lies within the window of them, since
-    clustering would drop them whatever their SNR.
+    with the threshold times :data:`GRID_MARGIN`.  Every peak is refined
+    (start time between samples, SNR and amplitudes; vectorised per template,
+    :meth:`~ringsearch.search.probe.Probe.refine_many`), those whose refined
+    SNR reaches ``snr_threshold`` are kept and clustered greedily on
+    ``snr_reweighted`` within ``cluster_window_s``.  The chi-squared is
+    computed lazily: candidates are taken in the order of their raw SNR (an
+    upper bound of the re-weighted one), and a candidate within the window of
+    a kept trigger is dropped without a veto, since clustering would drop it
+    whatever its chi-squared.  The result equals vetoing every peak first.
     Returns the trigger table without ``trigger_id`` (ids are given across
     detectors by the engine), sorted by time.
 
@@ -144,38 +139,33 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
     import heapq
 
     w = float(cluster_window_s)
-    fs = probe.sample_rate
+    thr = float(snr_threshold)
     ti = peaks["template_index"].to_numpy(int)
     samp = peaks["sample"].to_numpy(np.int64)
-    t_grid = peaks["gps"].to_numpy(float)
-    bound = peaks["snr_grid"].to_numpy(float) * LAZY_BOUND
-    heap: list = [(-bound[i], i, -1) for i in range(len(peaks))]
-    heapq.heapify(heap)
+    order = np.argsort(ti, kind="stable")
+    cuts = np.flatnonzero(np.diff(ti[order])) + 1
+    heap: list = []
     refined: dict[int, Peak] = {}
+    for rows in np.split(order, cuts) if order.size else []:
+        for i, pk in zip(rows, probe.refine_many(int(ti[rows[0]]), samp[rows],
+                                                 veto_from=math.inf), strict=True):
+            if pk.snr >= thr:
+                refined[int(i)] = pk
+                heap.append((-pk.snr, int(i), 0))
+    heapq.heapify(heap)
     kept_t: list[float] = []
     kept: list[Peak] = []
-    margin = 1.0 / fs  # a refined start lies within a sample of its grid sample
 
-    def near_kept(t: float, reach: float) -> bool:
+    def near_kept(t: float) -> bool:
         j = bisect.bisect_left(kept_t, t)
-        return (j < len(kept_t) and kept_t[j] - t < reach) or (j > 0 and t - kept_t[j - 1]
-                                                                < reach)
+        return (j < len(kept_t) and kept_t[j] - t < w) or (j > 0 and t - kept_t[j - 1] < w)
 
-    # states: -1 on-grid only (key: bound), 0 refined without the veto (key: raw SNR, an
-    # upper bound of the re-weighted one), 1 refined with the veto (key: exact)
+    # states: 0 refined without the veto (key: raw SNR, an upper bound of the re-weighted
+    # one), 1 with the veto (key: exact)
     while heap:
         _, i, state = heapq.heappop(heap)
-        if state < 0:
-            if near_kept(t_grid[i], w - margin):
-                continue  # dropped by the clustering whatever its refined SNR
-            pk = probe.refine(int(ti[i]), int(samp[i]), veto_from=math.inf)
-            if pk.snr < float(snr_threshold):
-                continue
-            refined[i] = pk
-            heapq.heappush(heap, (-pk.snr, i, 0))
-            continue
         pk = refined[i]
-        if near_kept(pk.gps, w):
+        if near_kept(pk.gps):
             continue
         if state == 0 and probe.veto_bins is not None:
             refined[i] = pk = probe.with_veto(pk)
