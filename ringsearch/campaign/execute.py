@@ -268,6 +268,9 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         shared = share(spec.config, out / SHARED) if callable(share) else None
         chunks, injections = load_plan(out)
         todo = [c for c in chunks.to_dict("records") if not chunk_done(out, c["chunk"])]
+        # the longest units first (background units search whole stretches with their
+        # slides), so parallel workers do not wait on one at the end
+        todo.sort(key=lambda c: c.get("kind") != "background")
         if max_chunks is not None:
             todo = todo[:max_chunks]
         groups = dict(tuple(injections.groupby("chunk")))

@@ -290,34 +290,41 @@ def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame,
                 [unwrap_time(t, -sl.shifts[a], sl.span) for t in t_own])
             slid[sl.index] = (t_slid, _in_segments(t_slid, sl.live))
         # seeds in template order: a template's preparation serves all its seeds and slides
-        for j in np.argsort(g["template_index"].to_numpy(), kind="stable"):
-            r = g.iloc[j]
-            ti = int(r["template_index"])
-            for sl in slides:
-                t_slid, keep = slid[sl.index]
-                if not keep[j]:
+        cols_a = {c: g[c].to_numpy() for c in ("template_index", "gps", "snr",
+                                                "snr_reweighted", "chisq", "chisq_dof",
+                                                "trigger_id")}
+        for j in np.argsort(cols_a["template_index"], kind="stable"):
+            ti = int(cols_a["template_index"][j])
+            gps, snr = float(cols_a["gps"][j]), float(cols_a["snr"][j])
+            rw, chisq = float(cols_a["snr_reweighted"][j]), float(cols_a["chisq"][j])
+            dof, trig_id = int(cols_a["chisq_dof"][j]), int(cols_a["trigger_id"][j])
+            active = [sl for sl in slides if slid[sl.index][1][j]]
+            # every other detector's peak of the same template, in every slide at once
+            found = {}
+            for d in dets:
+                if d == a or not active:
                     continue
+                centres = np.array([gps if sl.index == 0 else
+                                    unwrap_time(float(slid[sl.index][0][j]), sl.shifts[d],
+                                                sl.span) for sl in active])
+                half = windows[(a, d)]
+                found[d] = (centres, half, probes[d].peaks(ti, centres - half, centres + half))
+            for s_i, sl in enumerate(active):
                 row: dict[str, Any] = {
-                    "slide": sl.index, "gps": float(r["gps"]), "slid_gps": float(t_slid[j]),
+                    "slide": sl.index, "gps": gps, "slid_gps": float(slid[sl.index][0][j]),
                     "anchor_detector": a, "template_index": ti, "template_id": tid[ti],
                     "on_box_edge": bool(edge[ti]) if edge is not None else False}
-                total = float(r["snr_reweighted"]) ** 2
-                _fill(row, a, float(r["gps"]), float(r["snr"]), float(r["snr_reweighted"]),
-                      float(r["chisq"]), int(r["chisq_dof"]), int(r["trigger_id"]))
+                total = rw ** 2
+                _fill(row, a, gps, snr, rw, chisq, dof, trig_id)
                 ok = True
-                for d in dets:
-                    if d == a:
-                        continue
-                    centre = (float(r["gps"]) if sl.index == 0
-                              else unwrap_time(float(t_slid[j]), sl.shifts[d], sl.span))
-                    half = windows[(a, d)]
-                    pk = probes[d].peak(ti, centre - half, centre + half)
+                for d, (centres, half, pks) in found.items():
+                    pk = pks[s_i]
                     if pk is None:
                         ok = False
                         break
                     total += pk.snr_reweighted ** 2
                     _fill(row, d, pk.gps, pk.snr, pk.snr_reweighted, pk.chisq, pk.chisq_dof,
-                          _own_trigger(own[d], centre, half))
+                          _own_trigger(own[d], float(centres[s_i]), half))
                 if ok:
                     row["network_snr"] = math.sqrt(total)
                     rows.append(row)

@@ -112,9 +112,10 @@ def delay_taps(frac: np.ndarray) -> np.ndarray:
     ((2, 32), 1.0, 1.0)
     """
     frac = np.asarray(frac, float)
-    u = frac[:, None] - np.arange(-KERNEL_HALF + 1, KERNEL_HALF + 1)
-    w = i0(KAISER_BETA * np.sqrt(np.clip(1.0 - (u / KERNEL_HALF) ** 2, 0.0, None)))
-    out = np.sinc(u) * w / i0(KAISER_BETA)
+    u = frac[:, None] - _TAP_POSITIONS
+    w = i0(KAISER_BETA * np.sqrt(np.maximum(1.0 - (u / KERNEL_HALF) ** 2, 0.0)))
+    out = np.sinc(u) * w
+    out *= _KAISER_NORM
     on_sample = frac == 0.0
     if on_sample.any():  # sin(pi n) is not exactly 0 in floating point
         out[on_sample] = 0.0
@@ -122,6 +123,8 @@ def delay_taps(frac: np.ndarray) -> np.ndarray:
     return out
 
 
+_TAP_POSITIONS = np.arange(-KERNEL_HALF + 1, KERNEL_HALF + 1)
+_KAISER_NORM = 1.0 / float(i0(KAISER_BETA))
 _REFINE_TAPS: dict[int, np.ndarray] = {}
 
 
@@ -293,26 +296,33 @@ class Probe:
             self._used += prep.veto.weights.nbytes
         return prep.veto
 
-    def _shifted(self, starts: np.ndarray, length: int, fracs: np.ndarray) -> np.ndarray:
+    def _shifted(self, starts: np.ndarray, length: int, fracs: np.ndarray,
+                 taps: np.ndarray | None = None) -> np.ndarray:
         """(P, length) doubly whitened samples from each ``starts[p]``, delayed by ``fracs[p]``
-        of a sample (Kaiser-windowed sinc, :func:`delay_taps`)."""
-        out = self._segments(starts, length)
+        of a sample (Kaiser-windowed sinc, :func:`delay_taps`; ``taps`` if already made)."""
         moving = fracs > 0.0
-        if moving.any():
-            taps = delay_taps(fracs[moving])
-            seg = self._segments(starts[moving] - KERNEL_HALF + 1,
-                                 length + 2 * KERNEL_HALF - 1)
-            win = np.lib.stride_tricks.sliding_window_view(seg, 2 * KERNEL_HALF, axis=-1)
-            out[moving] = np.einsum("pli,pi->pl", win, taps)
-        return out
+        if not moving.any():
+            return self._segments(starts, length)
+        taps = delay_taps(fracs) if taps is None else taps
+        seg = self._segments(starts - KERNEL_HALF + 1, length + 2 * KERNEL_HALF - 1)
+        if starts.size == 1:
+            return np.correlate(seg[0], taps[0], mode="valid")[None]
+        win = np.lib.stride_tricks.sliding_window_view(seg, 2 * KERNEL_HALF, axis=-1)
+        return np.einsum("pli,pi->pl", win, taps)
 
     # ------------------------------------------------------------------ data access
     def _segments(self, starts: np.ndarray, length: int) -> np.ndarray:
-        """(P, length) doubly whitened samples from each ``starts[p]``, zero outside the data."""
-        idx = np.asarray(starts, np.int64)[:, None] + np.arange(length)
-        n = self.weighted.size
+        """(P, length) doubly whitened samples from each ``starts[p]``, zero outside the data
+        (read-only: may be a view of the data)."""
+        starts = np.asarray(starts, np.int64)
+        x, n = self.weighted, self.weighted.size
+        if starts.size == 1 and 0 <= starts[0] and starts[0] + length <= n:
+            return x[int(starts[0]):int(starts[0]) + length][None]
+        idx = starts[:, None] + np.arange(length)
+        if starts.size and starts.min() >= 0 and starts.max() + length <= n:
+            return x[idx]
         inside = (idx >= 0) & (idx < n)
-        return np.where(inside, self.weighted[np.clip(idx, 0, n - 1)], 0.0)
+        return np.where(inside, x[np.clip(idx, 0, n - 1)], 0.0)
 
     def _correlations(self, prep: _Prepared, starts: np.ndarray, n_pos: int) -> np.ndarray:
         """Correlations z (P, 2K, n_pos) of the raw basis at on-grid starts ``starts[p] + i``.
@@ -384,33 +394,41 @@ class Probe:
         >>> peaks = probe.refine_many(3, [65536, 70000], veto_from=float("inf"))  # doctest: +SKIP
         """
         k = np.atleast_1d(np.asarray(samples, np.int64))
-        lo = np.maximum(np.broadcast_to(np.asarray(lo_s, float), k.shape), -1.0)
-        hi = np.minimum(np.broadcast_to(np.asarray(hi_s, float), k.shape), 1.0)
+        lo = np.broadcast_to(np.asarray(lo_s, float), k.shape)
+        hi = np.broadcast_to(np.asarray(hi_s, float), k.shape)
         if k.size == 0:
             return []
         prep = self.prepared(index)
-        n = self.values.size
-        before_ok = (k >= 1) & self.valid[np.clip(k - 1, 0, n - 1)]
-        after_ok = (k + 1 < n) & self.valid[np.clip(k + 1, 0, n - 1)]
-        lo = np.where(before_ok, lo, np.maximum(lo, 0.0))
-        hi = np.where(after_ok, hi, np.minimum(hi, 0.0))
         m = KERNEL_HALF + 1
-        taps = _refine_taps()
         out: list[Peak] = []
         for a in range(0, k.size, batch):
             sl = slice(a, a + batch)
             z = self._correlations(prep, k[sl] - m, 2 * m + 1)  # positions k-m .. k+m
-            y = np.matmul(prep.cinv, np.matmul(z, taps.T))  # (P, 2K, grid)
-            x = _grid_maximum(np.einsum("pjg,pjg->pg", y, y), lo[sl], hi[sl], REFINE_GRID)
-            floor = np.floor(x)
-            # the start's interpolation taps reach samples base-M+1 .. base+M, columns
-            # (base - k) + 2 .. of z (base - k in {-1, 0, 1})
-            first = floor.astype(np.int64) + m - KERNEL_HALF + 1
-            out += self._evaluate(index, k[sl] + floor.astype(np.int64), x - floor, prep,
-                                  veto_from, z=np.take_along_axis(
-                                      z, (first[:, None] + np.arange(2 * KERNEL_HALF))[:, None],
-                                      axis=2))
+            out += self._refined(index, prep, k[sl], z, lo[sl], hi[sl], veto_from)
         return out
+
+    def _refined(self, index: int, prep: _Prepared, k: np.ndarray, z: np.ndarray,
+                 lo: np.ndarray, hi: np.ndarray, veto_from: float) -> list[Peak]:
+        """Refine around on-grid samples ``k`` from their correlations ``z`` (P, 2K, 2m + 1)
+        at ``k - m .. k + m`` (m = KERNEL_HALF + 1), within [k + lo, k + hi]."""
+        n = self.values.size
+        valid = self.valid
+        lo = np.maximum(lo, -1.0)
+        hi = np.minimum(hi, 1.0)
+        before = k - 1
+        after = k + 1
+        lo = np.where((before >= 0) & valid[np.maximum(before, 0)], lo, np.maximum(lo, 0.0))
+        hi = np.where((after < n) & valid[np.minimum(after, n - 1)], hi, np.minimum(hi, 0.0))
+        y = np.matmul(prep.cinv, np.matmul(z, _refine_taps().T))  # (P, 2K, grid)
+        x = _grid_maximum(np.einsum("pjg,pjg->pg", y, y), lo, hi, REFINE_GRID)
+        floor = np.floor(x)
+        shift = floor.astype(np.int64)
+        # the start's interpolation taps reach samples base-M+1 .. base+M: columns
+        # (base - k) + 2 .. of z, with base - k in {-1, 0, 1}
+        first = shift + KERNEL_HALF + 1 - KERNEL_HALF + 1
+        cols = first[:, None] + np.arange(2 * KERNEL_HALF)
+        return self._evaluate(index, k + shift, x - floor, prep, veto_from,
+                              z=np.take_along_axis(z, cols[:, None], axis=2))
 
     def peak(self, index: int, gps_lo: float, gps_hi: float) -> Peak | None:
         """The loudest start of template ``index`` in ``[gps_lo, gps_hi]``, refined.
@@ -423,21 +441,47 @@ class Probe:
         --------
         >>> probe.peak(3, 1000000015.99, 1000000016.01).gps  # doctest: +SKIP
         """
-        fs = self.sample_rate
-        a = int(np.ceil((gps_lo - self.t0) * fs - 1e-9))
-        b = int(np.floor((gps_hi - self.t0) * fs + 1e-9))
-        a, b = max(a, 0), min(b, self.values.size - 1)
-        if b < a:
-            return None
-        ok = self.valid[a:b + 1]
-        if not ok.any():
-            return None
+        return self.peaks(index, [gps_lo], [gps_hi])[0]
+
+    def peaks(self, index: int, gps_lo: Any, gps_hi: Any, batch: int = 256
+              ) -> list[Peak | None]:
+        """:meth:`peak` of template ``index`` in many windows at once (e.g. every time slide).
+
+        Examples
+        --------
+        >>> probe.peaks(3, [1000000015.99, 1000000020.99], [1000000016.01, 1000000021.01])
+        ... # doctest: +SKIP
+        """
+        fs, n = self.sample_rate, self.values.size
+        lo_x = (np.atleast_1d(np.asarray(gps_lo, float)) - self.t0) * fs
+        hi_x = (np.atleast_1d(np.asarray(gps_hi, float)) - self.t0) * fs
+        first = np.maximum(np.ceil(lo_x - 1e-9).astype(np.int64), 0)
+        last = np.minimum(np.floor(hi_x + 1e-9).astype(np.int64), n - 1)
+        out: list[Peak | None] = [None] * lo_x.size
+        width = last - first + 1
+        if width.size == 0 or width.max() < 1:
+            return out
+        span = int(width.max())
+        pos = first[:, None] + np.arange(span)
+        ok = (pos <= last[:, None]) & self.valid[np.minimum(np.maximum(pos, 0), n - 1)]
+        rows = np.flatnonzero(ok.any(axis=1))
+        if rows.size == 0:
+            return out
         prep = self.prepared(index)
-        y = prep.cinv @ self._correlations(prep, np.array([a]), b - a + 1)[0]
-        rho2 = (y * y).sum(axis=0)
-        rho2[~ok] = -1.0
-        k = a + int(np.argmax(rho2))
-        return self.refine(index, k, (gps_lo - self.t0) * fs - k, (gps_hi - self.t0) * fs - k)
+        m = KERNEL_HALF + 1
+        for c in range(0, rows.size, batch):
+            r = rows[c:c + batch]
+            z = self._correlations(prep, first[r] - m, span + 2 * m)  # first-m .. +span+m
+            core = np.matmul(prep.cinv, z[:, :, m:m + span])
+            rho2 = np.where(ok[r], np.einsum("pjt,pjt->pt", core, core), -1.0)
+            i = np.argmax(rho2, axis=1)
+            k = first[r] + i
+            cols = i[:, None] + np.arange(2 * m + 1)
+            found = self._refined(index, prep, k, np.take_along_axis(z, cols[:, None], axis=2),
+                                  lo_x[r] - k, hi_x[r] - k, 0.0)
+            for row, pk in zip(r, found, strict=True):
+                out[row] = pk
+        return out
 
     def with_veto(self, peak: Peak) -> Peak:
         """The same peak with its chi-squared and re-weighted SNR (if it was refined without).
@@ -465,7 +509,8 @@ class Probe:
         prep = prep or self.prepared(index)
         if z is None:
             z = self._correlations(prep, ks - KERNEL_HALF + 1, 2 * KERNEL_HALF)
-        z = np.einsum("pjt,pt->pj", z, delay_taps(fracs))  # (P, 2K)
+        taps = delay_taps(fracs)
+        z = np.einsum("pjt,pt->pj", z, taps)  # (P, 2K)
         y = z @ prep.cinv.T
         snrs = np.sqrt(np.einsum("pj,pj->p", y, y))
         amps = z @ prep.to_amplitude.T
@@ -476,7 +521,8 @@ class Probe:
             if self.veto_bins is not None and snr >= veto_from:
                 veto = self._veto_of(index, prep)
                 r = veto.weights @ self._shifted(ks[p:p + 1] + veto.offset,
-                                                 veto.weights.shape[1], fracs[p:p + 1])[0]
+                                                 veto.weights.shape[1], fracs[p:p + 1],
+                                                 taps[p:p + 1])[0]
                 chisq, dof = float(r @ r), int(veto.dof)
                 rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
             else:
@@ -494,18 +540,17 @@ def _grid_maximum(rho2: np.ndarray, lo: np.ndarray, hi: np.ndarray, grid: np.nda
     its two neighbours when both lie inside the window and it is concave.
     """
     inside = (grid >= lo[:, None] - 1e-12) & (grid <= hi[:, None] + 1e-12)
-    r = np.where(inside, rho2, -np.inf)
+    r = np.where(inside, rho2, -1.0)  # rho2 >= 0: a finite mark for points outside
     i = np.argmax(r, axis=1)
     x = grid[i]
     rows = np.arange(r.shape[0])
-    j = np.clip(i, 1, grid.size - 2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        a, b, c = r[rows, j - 1], r[rows, j], r[rows, j + 1]
-        den = a - 2 * b + c
-        shift = np.clip(0.5 * (a - c) / den, -0.5, 0.5) * (grid[1] - grid[0])
+    j = np.minimum(np.maximum(i, 1), grid.size - 2)
+    a, b, c = r[rows, j - 1], r[rows, j], r[rows, j + 1]
+    den = a - 2 * b + c
     vertex = ((i > 0) & (i < grid.size - 1) & inside[rows, j - 1] & inside[rows, j + 1]
               & (den < 0))
-    x = np.where(vertex, x + shift, x)
-    x = np.clip(x, lo, hi)
+    step = 0.5 * (a - c) / np.where(vertex, den, -1.0)
+    x = np.where(vertex, x + np.minimum(np.maximum(step, -0.5), 0.5) * (grid[1] - grid[0]), x)
+    x = np.minimum(np.maximum(x, lo), hi)
     empty = ~inside.any(axis=1)
     return np.where(empty, np.minimum(np.maximum(0.0, lo), hi), x)
