@@ -166,13 +166,19 @@ def pending_chunks(out: str | Path) -> list[int]:
 
 def run_chunk_task(config: dict, chunk: dict, injections: pd.DataFrame,
                    worker: Worker | str | None = None) -> dict[str, Any]:
-    """Run one chunk (in whatever process it lands) and time it.
+    """Run one chunk (in whatever process it lands, with one BLAS thread) and time it.
 
     Returns ``{"chunk": index, "tables": {...}, "wall_s": .., "cpu_s": ..}``.
     """
+    from threadpoolctl import threadpool_limits
+
     fn = resolve_worker(worker)
     wall, cpu = time.perf_counter(), time.process_time()
-    tables = fn(config, chunk, injections)
+    # one linear-algebra thread: a chunk's numbers then do not depend on the machine's
+    # thread count (local and Dask results are bit-identical), and parallel workers do
+    # not compete for cores with their own BLAS threads
+    with threadpool_limits(limits=1):
+        tables = fn(config, chunk, injections)
     return {"chunk": int(chunk["chunk"]), "tables": tables,
             "wall_s": time.perf_counter() - wall, "cpu_s": time.process_time() - cpu,
             "host": os.uname().nodename, "pid": os.getpid()}
