@@ -204,3 +204,29 @@ def test_bad_input_is_one_sentence():
     bad.whitened_values[10] = np.nan
     with pytest.raises(InputError, match="NaN"):
         search_triggers(bad, bank)
+
+
+def test_template_grams_are_the_whitened_inner_products_of_the_basis():
+    # Parseval: the Gram matrix of a whitened basis is sum_t (h * u_i)(t) (h * u_j)(t).
+    # template_grams computes it as the Toeplitz quadratic form of the whitening's
+    # autocorrelation; here it is checked against whitening each basis function by FFT
+    # on a grid 64 times longer than the filter (prepare_templates), on design-noise data
+    # with its estimated PSD, for one- to three-mode templates of 2 to 300 ms.
+    from ringsearch.data.condition import condition
+    from ringsearch.data.noise import gaussian_noise
+    from ringsearch.search.correlate import local_pad, response_on
+    from ringsearch.search.templates import template_grams
+
+    cond = condition(gaussian_noise("design", 64.0, FS, 3), f_low=20.0)
+    pad = local_pad(cond)
+    for f, tau in ((np.array([[250.0], [60.0]]), np.array([[0.004], [0.03]])),
+                   (np.array([[250.0, 242.0, 231.0], [90.0, 88.0, 84.0]]),
+                    np.array([[0.004, 0.0013, 0.0008], [0.012, 0.004, 0.0024]]))):
+        g = template_grams(f, tau, lambda n: response_on(cond, n, FS), FS, pad)
+        n = 1 << int(np.ceil(np.log2(64 * pad)))
+        ref = prepare_templates(f, tau, response_on(cond, n, FS), n, FS)
+        assert g.ok.all() and ref.ok.all()
+        for i in range(f.shape[0]):
+            c_new, c_ref = np.linalg.inv(g.cinv[i]), ref.chol[i]
+            gram_new, gram_ref = c_new @ c_new.T, c_ref @ c_ref.T
+            assert np.abs(gram_new - gram_ref).max() < 1e-5 * np.abs(gram_ref).max()
