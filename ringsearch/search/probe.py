@@ -178,25 +178,39 @@ class _Prepared:
         self.spectra: dict[int, np.ndarray] = {}  # conj(rfft(basis, n)) by n
 
 
-def doubly_whitened(cond: Any) -> np.ndarray:
+def doubly_whitened(cond: Any, block: int = 1 << 21) -> np.ndarray:
     """The whitened data filtered once more by the whitening response: ``x = H w``.
 
     Then ``<d, u> = sum_j x[j] u[j]`` for a template u sampled on the data's
-    samples (H is real and symmetric).  One FFT of the data zero-padded by
-    twice the length holding all but 1e-10 of the filter's impulse-response
-    energy, so its ringing does not wrap around.
+    samples (H is real and symmetric).  FFT filtering with a margin of the
+    length holding all but 1e-10 of the filter's impulse-response energy, so
+    its ringing does not wrap around: in one FFT for data up to ``block``
+    samples, else block by block (overlap-save), so the transient memory does
+    not grow with the data's length.
 
     Examples
     --------
     >>> x = doubly_whitened(cond)  # doctest: +SKIP
     """
-    from ringsearch.search.correlate import filter_length
+    from ringsearch.search.correlate import _load_chunk, filter_length
 
     vals, fs, _ = data_arrays(cond)
-    n = scipy.fft.next_fast_len(vals.size + 2 * filter_length(cond, tol=1e-10), real=True)
-    spec = scipy.fft.rfft(vals, n)
-    spec *= response_on(cond, n, fs)
-    return scipy.fft.irfft(spec, n)[:vals.size]
+    pad = filter_length(cond, tol=1e-10)
+    if vals.size <= block:
+        n = scipy.fft.next_fast_len(vals.size + 2 * pad, real=True)
+        spec = scipy.fft.rfft(vals, n)
+        spec *= response_on(cond, n, fs)
+        return scipy.fft.irfft(spec, n)[:vals.size]
+    n = scipy.fft.next_fast_len(block + 2 * pad, real=True)
+    step = n - 2 * pad
+    resp = response_on(cond, n, fs)
+    out = np.empty(vals.size)
+    for start in range(0, vals.size, step):
+        spec = scipy.fft.rfft(_load_chunk(vals, start - pad, n))
+        spec *= resp
+        keep = min(step, vals.size - start)
+        out[start:start + keep] = scipy.fft.irfft(spec, n)[pad:pad + keep]
+    return out
 
 
 class Probe:
