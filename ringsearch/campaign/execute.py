@@ -256,6 +256,7 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         raise InputError(f"--workers must be at least 1, not {workers}.")
     client = None
     own_client = False
+    pool = None
     if scheduler is not None:
         if isinstance(scheduler, str):
             client, own_client = _connect(scheduler), True
@@ -268,11 +269,17 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         module = sys.modules.get(fn.__module__)
         hook = getattr(module, "prepare", None)
         prepare_output(spec, out, check=hook if callable(hook) else None)
+        chunks, injections = load_plan(out)
+        n_todo = sum(not chunk_done(out, c) for c in chunks["chunk"])
+        if max_chunks is not None:
+            n_todo = min(n_todo, max_chunks)
+        if client is None and workers > 1 and n_todo > 1:
+            # local workers start now: their imports overlap the fixed costs below
+            pool = _start_pool(min(workers, n_todo), fn)
         # fixed costs paid once: the worker may write what every chunk shares (e.g. its
         # template banks) into DIR/shared and tell the chunks where it is
         share = getattr(module, "share", None)
         shared = share(spec.config, out / SHARED) if callable(share) else None
-        chunks, injections = load_plan(out)
         todo = [c for c in chunks.to_dict("records") if not chunk_done(out, c["chunk"])]
         # the longest units first (background units search whole stretches with their
         # slides), so parallel workers do not wait on one at the end
@@ -287,15 +294,17 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
                      else injections.iloc[:0]) for c in todo]
             if client is not None:
                 _run_dask(client, args, worker, out, bar)
-            elif workers == 1 or len(args) <= 1:
+            elif pool is None:
                 for a in args:
                     save_chunk(out, run_chunk_task(*a, worker=worker))
                     bar.update(1)
             else:
-                _run_pool(workers, args, worker, out, bar)
+                _run_pool(pool, args, worker, out, bar)
         finally:
             bar.close()
     finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
         if own_client:
             client.close()
     if finalize and not pending_chunks(out):
@@ -305,29 +314,52 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
     return campaign_status(out)
 
 
-def _run_pool(workers: int, args, worker, out: Path, bar) -> None:
+def _warm(module: str) -> None:
+    """Import the chunk worker's module in a fresh worker process, and its ``warm`` hook."""
+    import importlib
+
+    hook = getattr(importlib.import_module(module), "warm", None)
+    if callable(hook):
+        hook()
+
+
+def _start_pool(workers: int, fn: Worker):
+    """A pool of ``workers`` local processes, started now and importing ``fn``'s module.
+
+    Forked children would inherit locks held by threads (tqdm, BLAS); spawn is
+    safe.  The processes persist until the campaign ends, so each pays its
+    imports and caches (banks, PSDs) once.
+    """
     import concurrent.futures as cf
     import multiprocessing
 
-    # Forked children would inherit locks held by threads (tqdm, BLAS); spawn is safe.
-    ctx = multiprocessing.get_context("spawn")
-    with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        futures = [pool.submit(run_chunk_task, *a, worker=worker) for a in args]
-        try:
-            for fut in cf.as_completed(futures):
-                save_chunk(out, fut.result())
-                bar.update(1)
-        except cf.process.BrokenProcessPool:
-            for f in futures:
-                f.cancel()
-            # not the user's input, but the CLI must still say one sentence, not a traceback
-            raise InputError(f"a worker process of the campaign in {out} died (killed, or "
-                             "out of memory); finished chunks are kept, so run the same "
-                             "command again to resume, perhaps with fewer --workers.") from None
-        except BaseException:
-            for f in futures:
-                f.cancel()
-            raise
+    pool = cf.ProcessPoolExecutor(max_workers=workers,
+                                  mp_context=multiprocessing.get_context("spawn"),
+                                  initializer=_warm, initargs=(fn.__module__,))
+    for _ in range(workers):  # spawn every process now, not at the first chunk
+        pool.submit(int)
+    return pool
+
+
+def _run_pool(pool, args, worker, out: Path, bar) -> None:
+    import concurrent.futures as cf
+
+    futures = [pool.submit(run_chunk_task, *a, worker=worker) for a in args]
+    try:
+        for fut in cf.as_completed(futures):
+            save_chunk(out, fut.result())
+            bar.update(1)
+    except cf.process.BrokenProcessPool:
+        for f in futures:
+            f.cancel()
+        # not the user's input, but the CLI must still say one sentence, not a traceback
+        raise InputError(f"a worker process of the campaign in {out} died (killed, or "
+                         "out of memory); finished chunks are kept, so run the same "
+                         "command again to resume, perhaps with fewer --workers.") from None
+    except BaseException:
+        for f in futures:
+            f.cancel()
+        raise
 
 
 def _run_dask(client, args, worker, out: Path, bar) -> None:

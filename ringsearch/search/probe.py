@@ -439,7 +439,7 @@ class Probe:
         shift = floor.astype(np.int64)
         # the start's interpolation taps reach samples base-M+1 .. base+M: columns
         # (base - k) + 2 .. of z, with base - k in {-1, 0, 1}
-        first = shift + KERNEL_HALF + 1 - KERNEL_HALF + 1
+        first = shift + 2  # m - M + 1 with m = M + 1
         cols = first[:, None] + np.arange(2 * KERNEL_HALF)
         return self._evaluate(index, k + shift, x - floor, prep, veto_from,
                               z=np.take_along_axis(z, cols[:, None], axis=2))
