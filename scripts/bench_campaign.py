@@ -4,7 +4,7 @@ Runs the shipped example campaigns (``injections/quick.toml`` and, when the
 open data are present, ``injections/gw150914.toml``) with fewer injections on
 1 and 2 local worker processes, and a sample of ``injections/target.toml``
 (the project's throughput target: 10,000 injections, a 2,000-template
-two-overtone bank, two detectors) with one worker.  From each run's chunk
+two-overtone bank, two detectors) with one worker, in whole chunks.  From each run's chunk
 markers it separates the CPU time of the chunks holding injections (cost per
 injection) from that of the background units searched once without
 injections, and for the target it extrapolates: the CPU time of its 10,000
@@ -13,7 +13,7 @@ injections plus all its background units, and the wall time on 2 cores.
 Usage::
 
     .venv/bin/python scripts/bench_campaign.py [--counts 60 120] [--workers 1 2]
-        [--target-count 24] [--json out.json] [--smoke]
+        [--target-count 52] [--json out.json] [--smoke]
 """
 
 from __future__ import annotations

@@ -12,13 +12,15 @@ the full-series search (which only *finds* peaks,
 Doubly whitened data
 --------------------
 The probe filters the whitened data once more with the whitening response H
-(``x = H w``, one FFT of the whole series).  Because H is real and
+(``x = H w``, one FFT of the whole series, or overlap-save blocks for long
+data).  Because H is real and
 symmetric, ``<d, u> = sum_j w[j] (h * u)[j] = sum_j x[j] u[j]``: the inner
 product with a template is a dot product of x with the *raw* sampled
 template over the template's own support (a few to a few hundred samples),
 with no whitening filter to carry along.  Only the template's Gram matrix
-and the veto's covariances need whitened inner products, computed once per
-template on a short FFT grid (:func:`ringsearch.search.templates.local_grid`).
+(:func:`ringsearch.search.templates.template_grams`, for every template at
+once) and the veto's covariances (once per template, on a short FFT grid,
+:func:`ringsearch.search.templates.local_grid`) need whitened inner products.
 
 Sub-sample start times
 ----------------------
@@ -266,7 +268,7 @@ class Probe:
         self.valid = start_mask(cond, float(longest_s))
         self.weighted = doubly_whitened(cond)
         self._responses: dict[int, np.ndarray] = {}
-        # every template's Gram matrix, on its own short grid (shared with the filter)
+        # every template's Gram matrix for these data (shared with the filter)
         self.grams = grams if grams is not None else template_grams(
             self._f, self._tau, self._response, self.sample_rate, self.pad, self.max_cond)
         self._cache: OrderedDict[int, _Prepared] = OrderedDict()

@@ -18,11 +18,15 @@ samples
   amplitude is ``A_n = a_{2n} + i a_{2n+1}`` (strain units), so the fitted signal
   is ``sum_n Re[A_n e^{-i 2 pi f_n (t - t0)}] e^{-(t - t0)/tau_n}``.
 
-Two users: the full-series correlation (:mod:`ringsearch.search.correlate`)
-prepares batches of templates on a data chunk's grid, and the evaluation at
-given start times (:mod:`ringsearch.search.probe`) and the veto
-(:mod:`ringsearch.search.veto`) prepare one template's Gram matrix and
-covariances on a short grid of its own (:func:`local_grid`).  Templates
+Every template's Gram matrix for a detector's data comes from
+:func:`template_grams` (the Toeplitz quadratic form of the whitening's
+autocorrelation), shared by the full-series correlation
+(:mod:`ringsearch.search.correlate`) and the evaluation at given start times
+(:mod:`ringsearch.search.probe`); the veto (:mod:`ringsearch.search.veto`)
+computes its covariances on a short grid of the template's own
+(:func:`local_grid`), and the one-template references of
+:mod:`~ringsearch.search.correlate` whiten spectra on their grid
+(:func:`prepare_templates`).  Templates
 whose normalised Gram matrix has a condition number above :data:`MAX_COND`
 are refused with a reason: their modes cannot be separated by the data.
 """

@@ -39,6 +39,7 @@ from ringsearch.search.probe import Peak, Probe
 #: This is part of what a trigger is, in every mode of the search.
 GRID_MARGIN: float = 0.95
 
+
 def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr",
                      time_column: str = "gps") -> pd.DataFrame:
     """Keep the loudest candidate in every time window, across all templates.
