@@ -39,8 +39,10 @@ Tables written (all atomically):
     the coincident seconds of every chunk's slides (``chunk, template_overtones,
     slide, live_time_s``): the background time the FARs divide by.
 ``candidates.parquet``
-    every zero-lag candidate the engine found in every chunk (``chunk``,
-    ``template_overtones`` and the engine's candidate columns).
+    the engine's zero-lag candidates of every chunk (``chunk``,
+    ``template_overtones`` and the engine's candidate columns): in the
+    default at-times mode those anchored within the match window of an
+    injection, in ``full`` mode all of them.
 ``threshold.csv``, ``efficiency.csv``, ``sigmoid.csv``, ``sensitivity.csv``,
 ``summary.json``.
 ``overtone_efficiency.csv`` (only with ``[overtones] enabled = true``)

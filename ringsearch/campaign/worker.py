@@ -464,26 +464,19 @@ def _engine_tables(res, n_tpl: int) -> tuple[pd.DataFrame, pd.DataFrame]:
     return events, live
 
 
-def injection_regions(config: dict, inj_table: pd.DataFrame, cluster_window_s: float
-                      ) -> dict:
-    """Per detector, the start times the at-times search covers: around every arrival.
+def injection_times(config: dict, inj_table: pd.DataFrame) -> dict:
+    """Per detector, the anchor times a candidate must have to match an injection.
 
-    Each injection's arrival at the detector, widened by the match window,
-    the largest light-travel time plus timing tolerance (the other detectors'
-    peaks), and four cluster windows (the clustering's reach), so the
-    candidates near the arrival are those of the whole-series search.
+    Each injection's arrival at the detector, widened by the match window (and
+    a microsecond against rounding): the at-times search returns the
+    whole-series candidates anchored there (:mod:`ringsearch.search.attimes`).
     """
     from gwpy.segments import Segment, SegmentList
 
-    from ringsearch.search.network import coincidence_windows
-
-    dets = list(config["data"]["detectors"])
-    s = config["search"]
-    widest = max(coincidence_windows(dets, s["tolerance_s"]).values(), default=0.0)
-    half = s["match_window_s"] + widest + 4 * cluster_window_s
+    half = float(config["search"]["match_window_s"]) + 1e-6
     return {d: SegmentList(Segment(t - half, t + half)
                            for t in inj_table[f"arrival_gps_{d}"].to_numpy(float)).coalesce()
-            for d in dets}
+            for d in config["data"]["detectors"]}
 
 
 def background_chunk(config: dict, chunk: dict) -> dict[str, pd.DataFrame]:
@@ -521,13 +514,13 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
     the overtone evidence, see :func:`overtone_evidence_rows`), ``found`` (per
     injection and template overtone count: the matched candidate's ranking
     statistic, its template and per-detector SNRs), ``candidates`` (the
-    engine's zero-lag candidates), and with ``search.mode = "full"``
-    ``background`` (the engine's time-slide events: ``template_overtones,
-    slide, stat``) and ``livetime`` (each slide's coincident seconds).  In the
-    default at-times mode the engine searches only around each injection
-    (:func:`injection_regions`) and the background comes from the campaign's
-    background units (:func:`background_chunk`, run for chunks of ``kind``
-    "background").
+    engine's zero-lag candidates; at-times: those near the injections), and
+    with ``search.mode = "full"`` ``background`` (the engine's time-slide
+    events: ``template_overtones, slide, stat``) and ``livetime`` (each
+    slide's coincident seconds).  In the default at-times mode the engine
+    searches only around each injection (:func:`injection_times`) and the
+    background comes from the campaign's background units
+    (:func:`background_chunk`, run for chunks of ``kind`` "background").
 
     Examples
     --------
@@ -571,8 +564,7 @@ def run_chunk(config: dict, chunk: dict, injections: pd.DataFrame) -> dict[str, 
             bg_rows.append(e)
             live_rows.append(lt)
         else:
-            regions = injection_regions(config, inj_table, engine.cluster_window(bank))
-            res = engine.run(conds, at=regions)
+            res = engine.run(conds, at=injection_times(config, inj_table))
         gates = {d: c.gates for d, c in conds.items()}
         found.append(match_injections(res, inj_table, search["match_window_s"], gates)
                      .assign(template_overtones=n_tpl))

@@ -318,11 +318,11 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
             if good.size == 0:
                 bar.update(len(idx))
                 continue
-            u = basis_waveforms(f[good], tau[good], n_sup, fs)  # raw, from sample 0
-            # orthonormal conjugate spectra C^{-1} conj(U): the correlations are then the
-            # projection coordinates y themselves
-            spec = np.matmul(grams.cinv[good], np.conj(scipy.fft.rfft(u, plan.n_fft, axis=-1)))
-            spec = spec.astype(cplx)
+            # the orthonormal basis C^{-1} u (raw u from sample 0), so the correlations are
+            # the projection coordinates y themselves; C^{-1} is real, so it is applied to
+            # the short waveforms before their FFT rather than to the spectra
+            u = np.matmul(grams.cinv[good], basis_waveforms(f[good], tau[good], n_sup, fs))
+            spec = np.conj(scipy.fft.rfft(u.astype(real), plan.n_fft, axis=-1))
             for c, s in enumerate(bstarts):
                 # valid starts of this chunk: global [s, s + step) = relative [0, step)
                 b_rel = min(plan.step, vals.size - s)

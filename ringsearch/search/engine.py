@@ -41,6 +41,7 @@ import numpy as np
 import pandas as pd
 
 from ringsearch.errors import InputError
+from ringsearch.search.attimes import search_at_times
 from ringsearch.search.bank import Bank
 from ringsearch.search.correlate import default_cluster_window, filter_peaks, valid_starts
 from ringsearch.search.network import (
@@ -640,12 +641,16 @@ class Search:
                 for d, c in conds.items()}
 
     def triggers(self, conds: Mapping[str, Any], bank: Bank, probes: Mapping[str, Probe],
-                 progress: bool = False, regions: Mapping[str, Any] | None = None
-                 ) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
+                 progress: bool = False, regions: Mapping[str, Any] | None = None,
+                 return_contenders: bool = False) -> tuple:
         """Every detector's triggers with ids, the refused templates and the analysed time.
 
         With ``regions`` (detector -> SegmentList of start times) only those
-        start times are filtered (see :meth:`run`'s ``at``).
+        start times are filtered (near a region's edges the clustering can
+        differ from the whole series': see :mod:`ringsearch.search.attimes`).
+        With ``return_contenders`` a fourth item maps each detector to the
+        refined peaks its clustering chose from
+        (:func:`~ringsearch.search.triggers.detector_triggers`).
 
         Examples
         --------
@@ -654,7 +659,7 @@ class Search:
         cfg = self.config
         window = self.cluster_window(bank)
         edge = bank.on_box_edge()
-        tables, refused, analysed = [], [], {}
+        tables, refused, analysed, contenders = [], [], {}, {}
         for d, c in conds.items():
             thr = cfg.threshold_for(d)
             peaks, tmpl = filter_peaks(c, bank.f_hz, bank.tau_s, thr * GRID_MARGIN,
@@ -668,12 +673,18 @@ class Search:
                 "detector": d, "template_id": bank.table.template_id.to_numpy()[bad.index],
                 "cond_gram": bad.cond_gram.to_numpy(float),
                 "reason": bad.refused.to_numpy(str)}))
-            tables.append(detector_triggers(probes[d], peaks, bank, thr, window,
-                                            tmpl.cond_gram.to_numpy(float), edge))
+            table = detector_triggers(probes[d], peaks, bank, thr, window,
+                                      tmpl.cond_gram.to_numpy(float), edge,
+                                      return_contenders=return_contenders)
+            if return_contenders:
+                table, contenders[d] = table
+            tables.append(table)
         trig = pd.concat(tables, ignore_index=True)
         trig = trig.sort_values(["gps", "detector"], kind="stable").reset_index(drop=True)
         trig.insert(0, "trigger_id", np.arange(len(trig), dtype=np.int64))
         refused_t = pd.concat(refused, ignore_index=True)
+        if return_contenders:
+            return trig, refused_t, analysed, contenders
         return trig, refused_t, analysed
 
     def cluster_window(self, bank: Bank) -> float:
@@ -730,12 +741,13 @@ class Search:
             lag), e.g. around known signals or injections; the slides'
             coincident time shrinks accordingly.
         at : mapping detector -> SegmentList, optional
-            Search only these start times (e.g. around injections): the
-            candidates there are those of the whole-series search (the same
-            bins, refinement, veto and network statistic; give each region a
-            few cluster windows of margin around the times of interest, since
-            clustering looks that far).  No time slides are made and no FAR is
-            given: campaigns take it from a background searched once.
+            Return only the candidates anchored at these times (e.g. near
+            injections), searching short regions around them: they are those
+            of the whole-series search, certified region by region and
+            searched wider where not (:mod:`ringsearch.search.attimes`).  The
+            triggers are those the candidates refer to.  No time slides are
+            made and no FAR is given: campaigns take it from a background
+            searched once.
         detector, sample_rate, data_start : optional
             For strain files that do not describe themselves (file paths only).
 
@@ -753,13 +765,12 @@ class Search:
         cfg = self.config
         dets = list(conds)
         probes = self.probes(conds, bank)
-        trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress,
-                                                regions=at)
-        window = self.cluster_window(bank)
-        extra: dict[str, Any] = {}
         valid = {d: self._valid(c, bank) for d, c in conds.items()}
         if at is not None:
-            return self._at_times(conds, bank, probes, trig, refused, analysed, valid)
+            return self._at_times(conds, bank, probes, at, valid, progress)
+        trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress)
+        window = self.cluster_window(bank)
+        extra: dict[str, Any] = {}
         if len(dets) == 1:
             d = dets[0]
             cands = single_detector_far(trig, analysed[d], column="snr_reweighted")
@@ -813,27 +824,18 @@ class Search:
                             analysed, SLIDES_METHOD, probes, extra, valid)
 
 
-    def _at_times(self, conds, bank, probes, trig, refused, analysed, valid) -> SearchResult:
-        """The zero-lag candidates of a search restricted to requested start times."""
-        cfg = self.config
+    def _at_times(self, conds, bank, probes, at, valid, progress) -> SearchResult:
+        """The zero-lag candidates anchored at requested times (see :mod:`.attimes`)."""
         dets = list(conds)
-        window = self.cluster_window(bank)
-        if len(dets) == 1:
-            cands = trig.copy()
-            cands.insert(2, "network_snr", cands["snr_reweighted"])
-        else:
-            zero = slide_plan(valid, 0, 1.0)[0]
-            cands = network_events(probes, trig, zero, cfg.tolerance_s, window, bank,
-                                   bank.on_box_edge())
-        for col in FAR_COLUMNS:
-            cands[col] = pd.Series(np.nan, index=cands.index, dtype=float)
-        cands = cands.sort_values("network_snr", ascending=False,
-                                  kind="stable").reset_index(drop=True)
+        out = search_at_times(self, conds, bank, probes, at, valid, progress=progress)
+        analysed = out["analysed"]
         slides = pd.DataFrame({"slide": [0], **{f"shift_{d}_s": [0.0] for d in dets},
                                "live_s": [min(analysed.values())]})
-        extra = {"note": "searched at requested times only: no time slides, no FAR"}
-        return SearchResult(cfg, bank, conds, trig, cands, _empty_background(dets), slides,
-                            refused, analysed, AT_TIMES_METHOD, probes, extra, valid)
+        extra = {"note": "searched at requested times only: no time slides, no FAR",
+                 "at_times_rounds": out["rounds"]}
+        return SearchResult(self.config, bank, conds, out["triggers"], out["candidates"],
+                            _empty_background(dets), slides, out["refused"], analysed,
+                            AT_TIMES_METHOD, probes, extra, valid)
 
 
 def _empty_background(dets: list[str]) -> pd.DataFrame:

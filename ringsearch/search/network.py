@@ -232,7 +232,8 @@ def _in_segments(t: np.ndarray, segs: Any) -> np.ndarray:
 def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame,
                    slides: Slide | Sequence[Slide], tolerance_s: float,
                    cluster_window_s: float, bank: Any,
-                   edge: np.ndarray | None = None, progress: bool = False) -> pd.DataFrame:
+                   edge: np.ndarray | None = None, progress: bool = False,
+                   cluster: bool = True) -> pd.DataFrame:
     """Network events of time slides (or the zero lag), seeded by every trigger.
 
     Parameters
@@ -250,6 +251,8 @@ def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame,
         closer than the cluster window (in slid time) keep the loudest.
     progress : bool
         A progress bar over the seeds on stderr.
+    cluster : bool
+        Cluster each slide's events (False: every seed's event, unclustered).
 
     Returns
     -------
@@ -334,14 +337,28 @@ def network_events(probes: Mapping[str, Probe], triggers: pd.DataFrame,
         return pd.DataFrame({c: pd.Series(dtype=object if c == "anchor_detector" else float)
                              for c in cols})
     ev = pd.DataFrame(rows)[cols]
-    ev = pd.concat([cluster_triggers(g, cluster_window_s, column="network_snr",
-                                     time_column="slid_gps")
-                    for _, g in ev.groupby("slide", sort=True)], ignore_index=True)
+    if cluster:
+        ev = cluster_events(ev, cluster_window_s)
     for c in ["slide", "template_index"] + [f"{d}_trigger_id" for d in dets] + [
             f"{d}_chisq_dof" for d in dets]:
         ev[c] = ev[c].astype(np.int64)
     ev["on_box_edge"] = ev["on_box_edge"].astype(bool)
     return ev
+
+
+def cluster_events(events: pd.DataFrame, cluster_window_s: float) -> pd.DataFrame:
+    """Each slide's network events closer than the cluster window (slid time), loudest kept.
+
+    Examples
+    --------
+    >>> kept = cluster_events(network_events(probes, trig, plan, 0.01, 0.05, bank,
+    ...                                      cluster=False), 0.05)  # doctest: +SKIP
+    """
+    if not len(events):
+        return events.copy()
+    return pd.concat([cluster_triggers(g, cluster_window_s, column="network_snr",
+                                       time_column="slid_gps")
+                      for _, g in events.groupby("slide", sort=True)], ignore_index=True)
 
 
 def _fill(row: dict, d: str, gps: float, snr: float, rw: float, chisq: float, dof: int,

@@ -22,6 +22,7 @@ from __future__ import annotations
 import bisect
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -71,6 +72,74 @@ def cluster_triggers(cand: pd.DataFrame, window_s: float, column: str = "snr",
     return cand.iloc[kept].sort_values(time_column, kind="stable").reset_index(drop=True)
 
 
+def stable_segments(zones: Any, times: Any, lower: Any, upper: Any, window_s: float) -> Any:
+    """Where a greedy clustering of a partial set of candidates equals that of the whole set.
+
+    Parameters
+    ----------
+    zones : SegmentList
+        Times where the partial set is complete: every candidate the whole set
+        has there is present, at the same time.
+    times, lower, upper : array_like
+        The partial set's candidates: time and bounds of the clustering key
+        (equal when it is known; ``lower = -inf`` when only an upper bound is).
+    window_s : float
+        The clustering window of :func:`cluster_triggers`.
+
+    Returns
+    -------
+    SegmentList
+        The parts of the zones where the kept candidates are those of
+        clustering the whole set, whatever it holds outside the zones.
+
+    Notes
+    -----
+    Greedy clustering suppresses only within the window, so two kinds of
+    *firewall* cut the influence of what lies beyond a zone's edge: a gap of
+    at least the window with no candidate, and a candidate louder (``lower``)
+    than every other within the window on both sides (``upper``), which is
+    kept whatever else exists and suppresses all of them.  A zone is stable
+    from its first firewall to its last; one without two firewalls inside it
+    contributes nothing.
+
+    Examples
+    --------
+    >>> from gwpy.segments import Segment, SegmentList
+    >>> z = SegmentList([Segment(0.0, 3.0)])
+    >>> t, snr = [0.2, 0.4, 1.0, 1.3, 2.4], [6.0, 8.0, 9.0, 7.0, 6.5]
+    >>> [(round(a, 6), round(b, 6)) for a, b in stable_segments(z, t, snr, snr, 0.5)]
+    [(0.9, 2.5)]
+    """
+    from gwpy.segments import Segment, SegmentList
+
+    w = float(window_s) * (1 + 1e-9) + 1e-12
+    t = np.asarray(times, float)
+    lo = np.asarray(lower, float)
+    hi = np.asarray(upper, float)
+    order = np.argsort(t, kind="stable")
+    t, lo, hi = t[order], lo[order], hi[order]
+    out = SegmentList()
+    for seg in SegmentList(zones).coalesce():
+        a, b = float(seg[0]), float(seg[1])
+        i, j = np.searchsorted(t, a, "left"), np.searchsorted(t, b, "right")
+        ts, los, his = t[i:j], lo[i:j], hi[i:j]
+        pts = np.concatenate(([a], ts, [b]))
+        gap = np.flatnonzero(np.diff(pts) >= w)
+        left = [float(pts[g] + w) for g in gap]  # stable from one window after a gap opens ...
+        right = [float(pts[g + 1] - w) for g in gap]  # ... to one window before it closes
+        # candidates louder than all others within the window, the window inside the zone
+        first = np.searchsorted(ts, ts - w, "right")
+        last = np.searchsorted(ts, ts + w, "left")
+        for m in np.flatnonzero((ts - w >= a) & (ts + w <= b)):
+            near = np.concatenate((his[first[m]:m], his[m + 1:last[m]]))
+            if not near.size or los[m] > near.max():
+                left.append(float(ts[m]))
+                right.append(float(ts[m]))
+        if left and min(left) < max(right):
+            out.append(Segment(min(left), max(right)))
+    return out.coalesce()
+
+
 def peak_table(peaks: Sequence[Peak], bank: Bank, detector: str,
                cond_gram: np.ndarray | None = None,
                edge: np.ndarray | None = None) -> pd.DataFrame:
@@ -116,7 +185,8 @@ def peak_table(peaks: Sequence[Peak], bank: Bank, detector: str,
 
 def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_threshold: float,
                       cluster_window_s: float, cond_gram: np.ndarray | None = None,
-                      edge: np.ndarray | None = None) -> pd.DataFrame:
+                      edge: np.ndarray | None = None, return_contenders: bool = False
+                      ) -> pd.DataFrame | tuple[pd.DataFrame, pd.DataFrame]:
     """Refine on-grid peaks, keep those above threshold, cluster them on the ranking SNR.
 
     ``peaks`` holds per-template on-grid maxima (``template_index``, ``sample``,
@@ -131,7 +201,11 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
     a kept trigger is dropped without a veto, since clustering would drop it
     whatever its chi-squared.  The result equals vetoing every peak first.
     Returns the trigger table without ``trigger_id`` (ids are given across
-    detectors by the engine), sorted by time.
+    detectors by the engine), sorted by time.  With ``return_contenders``
+    also every refined peak that reached the threshold (the candidates of the
+    clustering): ``gps`` and bounds of its ranking SNR, ``lower`` (the
+    re-weighted SNR when its veto was computed, else -inf) and ``upper`` (it,
+    or the raw SNR), as :func:`stable_segments` takes them.
 
     Examples
     --------
@@ -175,7 +249,17 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
         kept_t.insert(bisect.bisect_left(kept_t, pk.gps), pk.gps)
         kept.append(pk)
     table = peak_table(kept, bank, probe.detector, cond_gram, edge)
-    return table.sort_values("gps", kind="stable").reset_index(drop=True)
+    table = table.sort_values("gps", kind="stable").reset_index(drop=True)
+    if not return_contenders:
+        return table
+    pks = list(refined.values())
+    vetoed = np.array([probe.veto_bins is None or pk.chisq_dof > 0 for pk in pks], bool)
+    rw = np.array([pk.snr_reweighted for pk in pks], float)
+    contenders = pd.DataFrame({"gps": np.array([pk.gps for pk in pks], float),
+                               "lower": np.where(vetoed, rw, -np.inf),
+                               "upper": np.where(vetoed, rw,
+                                                 np.array([pk.snr for pk in pks], float))})
+    return table, contenders
 
 
 def loudest(triggers: pd.DataFrame, column: str = "snr_reweighted") -> dict | None:
