@@ -172,3 +172,21 @@ def test_dead_worker_process_is_one_sentence_and_resumable(tmp_path):
     run_campaign(small_spec(), out, worker=FAKE, progress=False)  # resumes with a good worker
     run_campaign(small_spec(), tmp_path / "ref", worker=FAKE, progress=False)
     assert_same_results(out, tmp_path / "ref")
+
+
+def test_script_without_main_guard_is_told_why_its_workers_died(tmp_path):
+    # regression: a script calling run_campaign at its top level with workers=2 got
+    # "died (killed, or out of memory)": spawned workers re-run the script and die
+    script = tmp_path / "unguarded.py"
+    script.write_text(
+        "import sys\n"
+        f"sys.path.insert(0, {str(Path(__file__).parent)!r})\n"
+        "from test_campaign_execute import small_spec\n"
+        "from ringsearch.campaign import run_campaign\n"
+        f"run_campaign(small_spec(), {str(tmp_path / 'out')!r}, "
+        f"worker={FAKE!r}, workers=2, progress=False)\n")
+    run = subprocess.run([sys.executable, str(script)], capture_output=True, text=True,
+                         timeout=300)
+    assert run.returncode != 0
+    assert "unguarded.py calls run_campaign at its top level" in run.stderr
+    assert 'if __name__ == "__main__":' in run.stderr

@@ -230,6 +230,8 @@ def run_campaign(spec: CampaignSpec, out: str | Path, *, workers: int = 1,
         Output folder; created, or resumed if it holds the same campaign.
     workers : int
         Local worker processes (1 runs in this process).  Ignored with ``scheduler``.
+        They are spawned, so a script that asks for more than one must call
+        `run_campaign` under ``if __name__ == "__main__":``.
     scheduler : str or distributed.Client, optional
         Address of a running Dask scheduler (``tcp://host:8786``), or a client.
     worker : callable or "module:function", optional
@@ -341,6 +343,21 @@ def _start_pool(workers: int, fn: Worker):
     return pool
 
 
+def _script_hint() -> str:
+    """A hint for the commonest death of spawned workers: a script without a main guard.
+
+    Spawned workers re-run the calling script; one that calls `run_campaign` at its
+    top level starts a campaign inside each worker, and the worker dies.
+    """
+    main = sys.modules.get("__main__")
+    path = getattr(main, "__file__", None)
+    if (path is None or not path.endswith(".py")
+            or Path(path).resolve().is_relative_to(Path(__file__).resolve().parents[1])):
+        return ""  # a notebook, the ringsearch command or python -m ringsearch
+    return (f" (if {Path(path).name} calls run_campaign at its top level, put the call "
+            "under `if __name__ == \"__main__\":`, which worker processes need)")
+
+
 def _run_pool(pool, args, worker, out: Path, bar) -> None:
     import concurrent.futures as cf
 
@@ -355,7 +372,8 @@ def _run_pool(pool, args, worker, out: Path, bar) -> None:
         # not the user's input, but the CLI must still say one sentence, not a traceback
         raise InputError(f"a worker process of the campaign in {out} died (killed, or "
                          "out of memory); finished chunks are kept, so run the same "
-                         "command again to resume, perhaps with fewer --workers.") from None
+                         "command again to resume, perhaps with fewer --workers"
+                         f"{_script_hint()}.") from None
     except BaseException:
         for f in futures:
             f.cancel()

@@ -664,7 +664,8 @@ class Search:
             thr = cfg.threshold_for(d)
             peaks, tmpl = filter_peaks(c, bank.f_hz, bank.tau_s, thr * GRID_MARGIN,
                                        window / 2, weighted=probes[d].weighted,
-                                       grams=probes[d].grams, progress=progress,
+                                       grams=probes[d].grams, groups=probes[d].groups,
+                                       progress=progress,
                                        gps_window=self._gps_window(),
                                        regions=None if regions is None else regions.get(d, []))
             analysed[d] = float(tmpl.attrs["analysed_s"])

@@ -271,9 +271,23 @@ class Probe:
         # every template's Gram matrix for these data (shared with the filter)
         self.grams = grams if grams is not None else template_grams(
             self._f, self._tau, self._response, self.sample_rate, self.pad, self.max_cond)
+        self._groups = None
         self._cache: OrderedDict[int, _Prepared] = OrderedDict()
         self._cache_bytes = int(cache_bytes)
         self._used = 0
+
+    @property
+    def groups(self) -> Any:
+        """The templates in groups with their principal bases for these data (built once).
+
+        See :mod:`ringsearch.search.subspace`; the full-series filter uses them.
+        """
+        if self._groups is None:
+            from ringsearch.search.subspace import template_groups
+
+            self._groups = template_groups(self._f, self._tau, self.grams, self._response,
+                                           self.sample_rate, self.pad)
+        return self._groups
 
     # ------------------------------------------------------------------ templates
     def _response(self, n: int) -> np.ndarray:
