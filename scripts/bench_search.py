@@ -4,7 +4,8 @@ Searches synthetic Gaussian noise (design PSD) of two detectors with a bank of
 about a thousand templates (N = 0 by default) and reports, all measured in
 this one process:
 
-* the full-series filter (peak finding, one detector) in CPU seconds;
+* the full-series filter (peak finding, one detector) in CPU seconds, grouped
+  (:mod:`ringsearch.search.subspace`, what the search runs) and per template;
 * the FFT floors: one complex inverse FFT of the chunk length per mode pair,
   per template, per chunk (scipy.fft, one worker), in complex128 and
   complex64, and the filter's ratio to each;
@@ -88,9 +89,20 @@ def main(argv: list[str] | None = None) -> int:
     probe = Probe(c, bank.f_hz, bank.tau_s)
     out.add("setup_cpu_s", setup, "CPU s",
             "per detector and bank: doubly whitened data and every template's Gram matrix")
+    groups_cpu = _cpu(lambda: probe.groups)
+    out.add("groups_cpu_s", groups_cpu, "CPU s",
+            "per detector and bank: the template groups' principal bases")
+    out.add("principal_functions", probe.groups.n_functions / (len(bank) * 2 * bank.n_modes),
+            "x", "principal functions / basis functions")
+    thr = 4.75 if args.overtones == 0 else 5.64  # the search's on-grid thresholds
+    kw = {"weighted": probe.weighted, "grams": probe.grams}
+    per_tmpl = out.add("per_template_cpu_s", _cpu(lambda: filter_peaks(
+        c, bank.f_hz, bank.tau_s, thr, window / 2, **kw)), "CPU s",
+        "per-template filter (one correlation per basis function), one detector")
     filt = out.add("filter_cpu_s", _cpu(lambda: filter_peaks(
-        c, bank.f_hz, bank.tau_s, 4.75, window / 2, weighted=probe.weighted,
-        grams=probe.grams)), "CPU s", "full-series filter, one detector")
+        c, bank.f_hz, bank.tau_s, thr, window / 2, groups=probe.groups, **kw)), "CPU s",
+        "full-series filter (grouped, what the search runs), one detector")
+    out.add("per_template_over_filter", per_tmpl / filt, "x", "per-template / grouped filter")
 
     # FFT floors: one complex inverse FFT of the chunk length per mode pair, template, chunk
     plan = plan_chunks(c.whitened.size, fs, float(bank.duration_s.max()), filter_length(c))

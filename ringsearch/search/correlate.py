@@ -215,8 +215,11 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     these templates and data) the data are correlated with each group's
     principal functions instead of every template's basis, and every member
     is evaluated exactly wherever the group's bound reaches the threshold
-    (:mod:`ringsearch.search.subspace`): the same peaks, from about a quarter
-    of the correlations.  Without, one correlation per basis function.
+    (:mod:`ringsearch.search.subspace`): the same peaks, from a fifth of the
+    correlations on the target bank.  Groups whose bound would be reached
+    too often at this threshold (:func:`~ringsearch.search.subspace.worth_grouping`)
+    are filtered template by template, as is everything without ``groups``:
+    one correlation per basis function.
 
     With ``regions`` (a SegmentList of GPS start times) only start times in
     them are filtered, each region widened to whole time bins and correlated
@@ -307,6 +310,14 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
         batch = int(max(1, min(256, (8 // np.dtype(real).itemsize) * 4_000_000
                                // (k2 * plan.n_fft))))
     thr2 = float(snr_threshold) ** 2
+    singles = np.arange(nt)  # templates filtered one by one, the rest in their groups
+    if groups is not None:
+        from ringsearch.search.subspace import worth_grouping
+
+        use = worth_grouping(groups, k2, float(snr_threshold))
+        grouped = np.flatnonzero(use).tolist()
+        singles = np.sort(np.concatenate([np.flatnonzero(~grams.ok)]
+                                         + [groups.members[g] for g in np.flatnonzero(~use)]))
     reach = filter_length(cond) if groups is not None else 0
     out: list[np.ndarray] = []
     from tqdm import tqdm
@@ -325,16 +336,14 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
         # FFT each data chunk of this block once; every template reuses it
         chunks = np.stack([_load_chunk(x, s, plan.n_fft) for s in bstarts])
         wspec = scipy.fft.rfft(chunks, axis=-1).astype(cplx)
-        if groups is None:
-            for idx in _iter_batches(nt, batch):
-                out += run.templates(idx, f, tau, grams, bstarts, wspec)
-                bar.update(len(idx))
-        else:
-            for gidx in _group_batches(groups, 2 * batch * k2):
+        for idx in _iter_batches(singles.size, batch):
+            out += run.templates(singles[idx], f, tau, grams, bstarts, wspec)
+            bar.update(len(idx))
+        if groups is not None:
+            for gidx in _group_batches(groups, grouped, 2 * batch * k2):
                 for g, samples in run.groups(gidx, groups, bstarts, wspec, reach):
                     flagged.setdefault(g, []).append(samples)
                 bar.update(sum(len(groups.members[g]) for g in gidx))
-            bar.update(int((~grams.ok).sum()))
     if groups is not None:
         out += run.exact(groups, grams, f, tau, flagged)
     bar.close()
@@ -349,12 +358,12 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     return peaks, templates
 
 
-def _group_batches(groups: Any, rows: int):
-    """Consecutive groups whose principal functions total about ``rows``."""
+def _group_batches(groups: Any, which: list[int], rows: int):
+    """Consecutive groups of ``which`` whose principal functions total about ``rows``."""
     batch, n = [], 0
-    for g, b in enumerate(groups.basis):
+    for g in which:
         batch.append(g)
-        n += b.shape[0]
+        n += groups.basis[g].shape[0]
         if n >= rows:
             yield batch
             batch, n = [], 0
