@@ -57,7 +57,7 @@ def _design_cond(seed: int, signals: bool):
     return Search(cfg).condition({"H1": ts})["H1"]
 
 
-def _compare(cond, bank, thr):
+def _compare(cond, bank, thr, require_groups=True):
     probe = Probe(cond, bank.f_hz, bank.tau_s, veto_bins=None)
     kw = {"weighted": probe.weighted, "grams": probe.grams}
     ref, _ = filter_peaks(cond, bank.f_hz, bank.tau_s, thr, 0.05, precision="double", **kw)
@@ -65,7 +65,8 @@ def _compare(cond, bank, thr):
     # precision here as the reference is (in single by default: tested elsewhere to 1e-5)
     got, _ = filter_peaks(cond, bank.f_hz, bank.tau_s, thr, 0.05, groups=probe.groups,
                           precision="double", **kw)
-    assert worth_grouping(probe.groups, 2 * bank.f_hz.shape[1], thr).any()  # groups used
+    if require_groups:
+        assert worth_grouping(probe.groups, 2 * bank.f_hz.shape[1], thr).any()
     return ref, got, probe
 
 
@@ -106,7 +107,8 @@ def test_grouped_filter_finds_the_per_template_peaks_in_open_data(gw150914_files
     cond = Search(cfg).condition([str(gw150914_files["H1"])])["H1"]
     for n in (0, 2):
         bank = Bank.from_box((40.0, 160.0), (0.3, 0.9), n, 0.98, f_high=900.0, seed=0)
-        ref, got, _ = _compare(cond, bank, 5.0 if n == 0 else 5.6)
+        # (one-mode groups of this sparse bank flag too often at 4096 Hz: filtered singly)
+        ref, got, _ = _compare(cond, bank, 5.0 if n == 0 else 5.6, require_groups=n > 0)
         _assert_same(ref, got, wbin=round(0.05 * float(cond.sample_rate)))
 
 
