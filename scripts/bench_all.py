@@ -24,6 +24,12 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 
+#: Further configurations of a script, each run as well (not in smoke mode).
+VARIANTS: dict[str, list[list[str]]] = {
+    # the filter's targets are for N = 0 and N = 2 banks of about a thousand templates
+    "bench_search": [["--overtones", "2", "--min-match", "0.98"]],
+}
+
 
 def machine() -> dict:
     """What the figures were measured on."""
@@ -41,13 +47,14 @@ def machine() -> dict:
             "date_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())}
 
 
-def run_script(script: Path, repeats: int, smoke: bool) -> dict:
+def run_script(script: Path, repeats: int, smoke: bool, extra: list[str] | None = None) -> dict:
     """Figures of ``repeats`` runs of one script: per key the values, minimum and median."""
     runs = []
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(repeats):
             out = Path(tmp) / f"{i}.json"
-            cmd = [sys.executable, str(script), "--json", str(out)] + (["--smoke"] * smoke)
+            cmd = [sys.executable, str(script), "--json", str(out), *(extra or [])] + (
+                ["--smoke"] * smoke)
             res = subprocess.run(cmd, check=False)
             if res.returncode != 0 or not out.exists():
                 raise RuntimeError(f"{script.name} failed (exit status {res.returncode})")
@@ -89,11 +96,13 @@ def main(argv: list[str] | None = None) -> int:
     info = machine()
     results, failed = [], []
     for script in scripts:
-        print(f"\n=== {script.name} ({repeats} run{'s' * (repeats > 1)}) ===", flush=True)
-        try:
-            results.append(run_script(script, repeats, args.smoke))
-        except RuntimeError as exc:
-            failed.append(str(exc))
+        for extra in [[]] + ([] if args.smoke else VARIANTS.get(script.stem, [])):
+            print(f"\n=== {script.name} {' '.join(extra)} ({repeats} run"
+                  f"{'s' * (repeats > 1)}) ===", flush=True)
+            try:
+                results.append(run_script(script, repeats, args.smoke, extra))
+            except RuntimeError as exc:
+                failed.append(str(exc))
     from ringsearch.files import write_json, write_text
 
     args.out.mkdir(parents=True, exist_ok=True)

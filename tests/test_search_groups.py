@@ -70,7 +70,10 @@ def _compare(cond, bank, thr, require_groups=True):
     return ref, got, probe
 
 
-def _assert_same(ref, got, wbin=round(0.05 * FS)):
+WBIN = round(0.05 * FS)  # the filter's time bin at 2048 Hz
+
+
+def _assert_same(ref, got, wbin=WBIN):
     # one maximum per template and time bin, with the same SNR; the sample may differ
     # only where two samples of a bin tie to rounding (the reference's FFT against the
     # direct products)

@@ -13,11 +13,14 @@ segment) count.
 
 This module *finds* peaks: per template, the largest on-grid SNR in each time
 bin (:func:`filter_peaks`), computed on the doubly whitened data with the raw
-templates, as the probe computes it.  Every number the search reports about a peak --
-its sub-sample start time, SNR, amplitudes and chi-squared -- is then
-computed by :class:`ringsearch.search.probe.Probe` on the template's own short
-grid, so the same numbers come out whether a peak was found here or asked for
-at a given time.
+templates, as the probe computes it.  Most templates are not correlated one
+by one: groups of neighbours are correlated with the principal basis of their
+span, and their members evaluated exactly only where a bound says one might
+reach the threshold (:mod:`ringsearch.search.subspace`).  Every number the
+search reports about a peak -- its sub-sample start time, SNR, amplitudes and
+chi-squared -- is then computed by :class:`ringsearch.search.probe.Probe` on
+the template's own short grid, so the same numbers come out whether a peak
+was found here or asked for at a given time.
 """
 
 from __future__ import annotations
