@@ -194,3 +194,27 @@ def test_groups_cover_every_accepted_template_once():
     covered = np.sort(np.concatenate(groups.members))
     assert covered.tolist() == np.flatnonzero(probe.grams.ok).tolist()
     assert np.all(groups.eps <= 0.01 + 1e-12)
+
+
+def test_grouped_filter_in_many_chunks_and_blocks_equals_one_pass(monkeypatch):
+    # chunks of 2 s in blocks of 2 chunks: flagged start times are evaluated block by
+    # block, and a time bin never straddles two chunks, so the peaks are the same
+    import ringsearch.search.correlate as flt
+
+    cond = _design_cond(6, signals=True)
+    bank = _bank(2)
+    ref, one, probe = _compare(cond, bank, 5.6)
+    orig = flt.plan_chunks
+    monkeypatch.setattr(flt, "plan_chunks",
+                        lambda *a, **k: orig(*a, **{**k, "max_single_s": 1.0}))
+    monkeypatch.setattr(flt, "BLOCK_BYTES", 0.0)  # blocks of block_chunks chunks
+    calls = []
+    exact = flt._Pass.exact
+    monkeypatch.setattr(flt._Pass, "exact", lambda self, *a: calls.append(1) or exact(self, *a))
+    kw = {"weighted": probe.weighted, "grams": probe.grams, "groups": probe.groups,
+          "precision": "double"}
+    many, _ = filter_peaks(cond, bank.f_hz, bank.tau_s, 5.6, 0.05, chunk_s=2.0,
+                           block_chunks=2, **kw)
+    assert len(calls) > 4  # flagged times evaluated block by block
+    _assert_same(ref, many)
+    _assert_same(one, many)

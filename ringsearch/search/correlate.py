@@ -51,6 +51,10 @@ from ringsearch.search.templates import (
 #: statistic's noise, on a grid several times shorter than a 1e-6 cut.
 LOCAL_PAD_TOL: float = 1e-5
 
+#: Bytes of data spectra held at once by the full-series filter (a block of
+#: chunks whose FFTs every template reuses; at least ``block_chunks`` chunks).
+BLOCK_BYTES: float = 64e6
+
 
 # --------------------------------------------------------------------------- data access
 def data_arrays(cond: Any) -> tuple[np.ndarray, float, float]:
@@ -327,14 +331,13 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
 
     # chunks whose FFTs share one pass over the templates: at least block_chunks, more
     # while the block's spectra stay near 64 MB (short chunks of regions)
-    per_block = max(block_chunks, int(64e6 // (plan.n_fft * np.dtype(cplx).itemsize)))
+    per_block = max(block_chunks, int(BLOCK_BYTES // (plan.n_fft * np.dtype(cplx).itemsize)))
     blocks = [starts[i:i + per_block] for i in range(0, len(starts), per_block)]
     bar = tqdm(total=len(blocks) * nt, desc=f"filtering {getattr(cond, 'detector', '')}",
                unit=" templates", disable=not progress, leave=False)
     n_sup = min(plan.n_fft, plan.tail + 2)
     run = _Pass(x=x, vals=vals, plan=plan, ok_t0=ok_t0, wbin=wbin, thr2=thr2, real=real,
                 n_sup=n_sup, fs=fs)
-    flagged: dict[int, list[np.ndarray]] = {}
     for bstarts in blocks:
         # FFT each data chunk of this block once; every template reuses it
         chunks = np.stack([_load_chunk(x, s, plan.n_fft) for s in bstarts])
@@ -343,12 +346,14 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
             out += run.templates(singles[idx], f, tau, grams, bstarts, wspec)
             bar.update(len(idx))
         if groups is not None:
+            # start times flagged in this block, evaluated exactly before the next one (a
+            # bin lies in one chunk, so in one block; memory follows the block, not the data)
+            flagged: dict[int, list[np.ndarray]] = {}
             for gidx in _group_batches(groups, grouped, 2 * batch * k2):
                 for g, samples in run.groups(gidx, groups, bstarts, wspec, reach):
                     flagged.setdefault(g, []).append(samples)
                 bar.update(sum(len(groups.members[g]) for g in gidx))
-    if groups is not None:
-        out += run.exact(groups, grams, f, tau, flagged)
+            out += run.exact(groups, grams, f, tau, flagged)
     bar.close()
     arr = _bin_maxima(np.concatenate(out) if out else np.empty((0, 3)), wbin)
     peaks = pd.DataFrame({"template_index": arr[:, 0].astype(int),
