@@ -10,6 +10,7 @@ the peaks on design noise with loud ringdowns and a glitch, and on open data.
 
 from __future__ import annotations
 
+import copy
 import math
 
 import numpy as np
@@ -122,7 +123,7 @@ def test_the_comparison_catches_a_bound_that_does_not_hold():
     cond = _design_cond(2, signals=False)
     bank = _bank(2)
     probe = Probe(cond, bank.f_hz, bank.tau_s, veto_bins=None)
-    groups = probe.groups
+    groups = copy.copy(probe.groups)  # the probe's are shared by data whitened alike
     groups.basis = [b[:2] for b in groups.basis]
     kw = {"weighted": probe.weighted, "grams": probe.grams}
     ref, _ = filter_peaks(cond, bank.f_hz, bank.tau_s, 5.6, 0.05, precision="double", **kw)
@@ -218,3 +219,24 @@ def test_grouped_filter_in_many_chunks_and_blocks_equals_one_pass(monkeypatch):
     assert len(calls) > 4  # flagged times evaluated block by block
     _assert_same(ref, many)
     _assert_same(one, many)
+
+
+def test_probes_of_data_whitened_alike_share_grams_and_groups():
+    # campaign chunks of one PSD: the second probe reuses the first one's Gram matrices
+    # and groups (same templates, same filter response), which equal fresh ones
+    from ringsearch.data.noise import design_psd
+    from ringsearch.search import probe as probe_mod
+
+    bank = _bank(2)
+    psd = design_psd(np.arange(0.0, 1024.25, 0.25))
+    conds = [Search().condition({"H1": gaussian_noise("design", 32, FS, s, gps_start=1e9,
+                                                      detector="H1")}, psds={"H1": psd})["H1"]
+             for s in (11, 12)]
+    a, b = (Probe(c, bank.f_hz, bank.tau_s, veto_bins=None) for c in conds)
+    assert b.grams is a.grams and b.groups is a.groups
+    probe_mod._SHARED.clear()
+    fresh = Probe(conds[1], bank.f_hz, bank.tau_s, veto_bins=None)
+    assert fresh.grams is not a.grams
+    np.testing.assert_array_equal(fresh.grams.cinv, a.grams.cinv)
+    for x, y in zip(fresh.groups.basis, a.groups.basis, strict=True):
+        np.testing.assert_array_equal(x, y)

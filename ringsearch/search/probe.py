@@ -215,6 +215,33 @@ def doubly_whitened(cond: Any, block: int = 1 << 21) -> np.ndarray:
     return out
 
 
+#: Gram matrices and template groups of recent (templates, filter response) pairs.
+_SHARED: OrderedDict[str, dict] = OrderedDict()
+_SHARED_ENTRIES = 4
+
+
+def _shared_key(f: np.ndarray, tau: np.ndarray, response: Any, fs: float, pad: int,
+                max_cond: float) -> str:
+    """A digest of everything the Gram matrices and the groups depend on."""
+    import hashlib
+
+    from ringsearch.search.templates import local_grid
+
+    n_acf = local_grid(tau.max(), fs, 8 * pad)
+    h = hashlib.blake2b(digest_size=16)
+    for part in (f, tau, np.asarray(response(n_acf), float),
+                 np.array([fs, pad, max_cond, n_acf], float)):
+        h.update(np.ascontiguousarray(part).tobytes())
+    return h.hexdigest()
+
+
+def _remember(key: str, name: str, value: Any) -> None:
+    _SHARED.setdefault(key, {})[name] = value
+    _SHARED.move_to_end(key)
+    while len(_SHARED) > _SHARED_ENTRIES:
+        _SHARED.popitem(last=False)
+
+
 class Probe:
     """Evaluate templates at requested start times in one detector's data.
 
@@ -268,9 +295,17 @@ class Probe:
         self.valid = start_mask(cond, float(longest_s))
         self.weighted = doubly_whitened(cond)
         self._responses: dict[int, np.ndarray] = {}
-        # every template's Gram matrix for these data (shared with the filter)
-        self.grams = grams if grams is not None else template_grams(
-            self._f, self._tau, self._response, self.sample_rate, self.pad, self.max_cond)
+        # every template's Gram matrix for these data (shared with the filter), and the
+        # template groups: both depend only on the templates and the filter response, so
+        # data whitened alike (campaign chunks of one PSD) share them
+        self._key = _shared_key(self._f, self._tau, self._response, self.sample_rate,
+                                self.pad, self.max_cond)
+        shared = _SHARED.get(self._key, {})
+        self.grams = grams if grams is not None else shared.get("grams")
+        if self.grams is None:
+            self.grams = template_grams(self._f, self._tau, self._response, self.sample_rate,
+                                        self.pad, self.max_cond)
+            _remember(self._key, "grams", self.grams)
         self._groups = None
         self._cache: OrderedDict[int, _Prepared] = OrderedDict()
         self._cache_bytes = int(cache_bytes)
@@ -285,8 +320,14 @@ class Probe:
         if self._groups is None:
             from ringsearch.search.subspace import template_groups
 
-            self._groups = template_groups(self._f, self._tau, self.grams, self._response,
-                                           self.sample_rate, self.pad)
+            shared = _SHARED.get(self._key, {})
+            mine = shared.get("grams") is self.grams  # not given Gram matrices of its own
+            self._groups = shared.get("groups") if mine else None
+            if self._groups is None:
+                self._groups = template_groups(self._f, self._tau, self.grams,
+                                               self._response, self.sample_rate, self.pad)
+                if mine:
+                    _remember(self._key, "groups", self._groups)
         return self._groups
 
     # ------------------------------------------------------------------ templates
