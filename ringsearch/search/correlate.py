@@ -464,9 +464,10 @@ class _Pass:
             basis[rows[i]:rows[i + 1], :b.shape[1]] = b[:, :self.n_sup]
         spec = np.conj(scipy.fft.rfft(basis, n_fft, axis=-1))
         thr = math.sqrt(self.thr2)
-        spans = [int(groups.length[g]) + 2 * reach for g in gidx]
-        quant = [reach_quantiles(int(groups.residual_dof[g]), span)
-                 for g, span in zip(gidx, spans, strict=True)]
+        spans = np.array([int(groups.length[g]) + 2 * reach for g in gidx])
+        quant = np.array([reach_quantiles(int(groups.residual_dof[g]), int(span))
+                          for g, span in zip(gidx, spans, strict=True)])  # (G, 2)
+        eps = groups.eps[gidx][:, None]
         longest = int(max(groups.length[g] for g in gidx))
         for c, s in enumerate(bstarts):
             mask = self._chunk_mask(s)
@@ -474,16 +475,16 @@ class _Pass:
                 continue
             n = mask.size
             b2 = scipy.fft.irfft(spec * wspec[c], n_fft, axis=-1)[:, :n]
-            b2 = np.add.reduceat(b2 * b2, rows[:-1], axis=0).astype(np.float64)
+            b2 = np.add.reduceat(b2 * b2, rows[:-1], axis=0).astype(np.float64)  # (G, n)
             cs = energy_sums(self.vals, s, n, longest, reach)
-            for i, g in enumerate(gidx):
-                energy = cs[spans[i]:spans[i] + n] - cs[:n]
-                base, high = quant[i]
-                extra = np.sqrt(np.maximum(energy - high, 0.0))
-                bound = member_bound(b2[i], base + extra, float(groups.eps[g]))
-                hit = np.flatnonzero((bound >= thr) & mask)
-                if hit.size:
-                    yield g, s + hit
+            energy = cs[spans[:, None] + np.arange(n)] - cs[:n]  # (G, n)
+            reach_g = quant[:, :1] + np.sqrt(np.maximum(energy - quant[:, 1:], 0.0))
+            bound = member_bound(b2, reach_g, eps)  # every group at once
+            gi, ti = np.nonzero((bound >= thr) & mask)
+            if gi.size:
+                cuts = np.flatnonzero(np.diff(gi)) + 1
+                for part_g, part_t in zip(np.split(gi, cuts), np.split(ti, cuts), strict=True):
+                    yield gidx[int(part_g[0])], s + part_t
 
     def exact(self, groups: Any, grams: Any, f: np.ndarray, tau: np.ndarray,
               flagged: dict[int, list[np.ndarray]]) -> list[np.ndarray]:

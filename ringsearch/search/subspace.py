@@ -299,8 +299,10 @@ def residual_reach(dof: int, energy: np.ndarray, window: int,
     return base + np.sqrt(np.maximum(np.asarray(energy, float) - high, 0.0))
 
 
-def member_bound(b2: np.ndarray, reach: np.ndarray, eps: float) -> np.ndarray:
+def member_bound(b2: np.ndarray, reach: np.ndarray, eps: Any) -> np.ndarray:
     """Upper bound on every member's SNR from ``|b|^2`` and the residual's reach.
+
+    The arguments broadcast (e.g. one row per group, ``eps`` of shape (G, 1)).
 
     Examples
     --------
