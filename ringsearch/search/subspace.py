@@ -65,9 +65,9 @@ FFT_OVER_PRODUCT: float = 90.0
 BOUND_SLACK: float = 1e-3
 
 #: Probability per group and start time that the data's norm in a group's
-#: residual space exceeds its bound in Gaussian noise: about 16 (group, start
+#: residual space exceeds its bound in Gaussian noise: about 5 (group, start
 #: time) pairs in a year of one detector's 2048 Hz data with the target bank's
-#: 248 groups, and a peak is missed only if a member is near the threshold
+#: 83 groups, and a peak is missed only if a member is near the threshold
 #: there as well (a fraction of about 1e-3 of pairs).
 MISS_PROBABILITY: float = 1e-12
 
