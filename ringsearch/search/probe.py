@@ -405,13 +405,17 @@ class Probe:
         length = prep.basis.shape[1]
         n = scipy.fft.next_fast_len(n_pos + length, real=True)
         seg = self._segments(starts, n_pos + length - 1)
+        spec = scipy.fft.rfft(seg, n, axis=-1)[:, None, :] * self._spectrum(prep, n)
+        return scipy.fft.irfft(spec, n, axis=-1)[..., :n_pos]
+
+    def _spectrum(self, prep: _Prepared, n: int) -> np.ndarray:
+        """conj(rfft(basis, n)) of a prepared template, kept with it (counted in the cache)."""
         basis_spec = prep.spectra.get(n)
-        if basis_spec is None:  # kept with the template (counted in the cache's budget)
+        if basis_spec is None:
             basis_spec = prep.spectra[n] = np.conj(scipy.fft.rfft(prep.basis, n, axis=-1))
             prep.nbytes += basis_spec.nbytes
             self._used += basis_spec.nbytes
-        spec = scipy.fft.rfft(seg, n, axis=-1)[:, None, :] * basis_spec
-        return scipy.fft.irfft(spec, n, axis=-1)[..., :n_pos]
+        return basis_spec
 
     # ------------------------------------------------------------------ evaluation
     def at(self, index: int, gps: float) -> Peak:
@@ -465,23 +469,65 @@ class Probe:
         >>> peaks = probe.refine_many(3, [65536, 70000], veto_from=float("inf"))  # doctest: +SKIP
         """
         k = np.atleast_1d(np.asarray(samples, np.int64))
+        return self.refine_batch(np.full(k.size, int(index)), k, lo_s, hi_s, veto_from, batch)
+
+    def refine_batch(self, indices: Any, samples: Any, lo_s: Any = -1.0, hi_s: Any = 1.0,
+                     veto_from: float = 0.0, batch: int = 512) -> list[Peak]:
+        """:meth:`refine` of template ``indices[p]`` at on-grid sample ``samples[p]``, for
+        peaks of many templates at once (in their order).
+
+        Templates whose short correlations share an FFT length are refined
+        together, so there is no Python work per template.
+        :meth:`refine_many` (one template) is this call.
+
+        Examples
+        --------
+        >>> peaks = probe.refine_batch([3, 7], [65536, 65540],
+        ...                            veto_from=float("inf"))  # doctest: +SKIP
+        """
+        idx = np.atleast_1d(np.asarray(indices, np.int64))
+        k = np.atleast_1d(np.asarray(samples, np.int64))
+        if idx.shape != k.shape:
+            raise InputError("indices and samples of the peaks must have the same length.")
         lo = np.broadcast_to(np.asarray(lo_s, float), k.shape)
         hi = np.broadcast_to(np.asarray(hi_s, float), k.shape)
+        out: list[Peak | None] = [None] * k.size
         if k.size == 0:
             return []
-        prep = self.prepared(index)
         m = KERNEL_HALF + 1
-        out: list[Peak] = []
-        for a in range(0, k.size, batch):
-            sl = slice(a, a + batch)
-            z = self._correlations(prep, k[sl] - m, 2 * m + 1)  # positions k-m .. k+m
-            out += self._refined(index, prep, k[sl], z, lo[sl], hi[sl], veto_from)
-        return out
+        n_pos = 2 * m + 1  # positions k-m .. k+m
+        uniq, inverse = np.unique(idx, return_inverse=True)
+        preps = [self.prepared(i) for i in uniq]
+        lengths = np.array([p.basis.shape[1] for p in preps])
+        n_of = np.array([scipy.fft.next_fast_len(n_pos + int(L), real=True) for L in lengths])
+        cinv = np.stack([p.cinv for p in preps])
+        to_amp = np.stack([p.to_amplitude for p in preps])
+        for n in np.unique(n_of):
+            tmpl = np.flatnonzero(n_of == n)  # templates (positions in uniq) of this length
+            longest = int(lengths[tmpl].max())
+            specs = np.stack([self._spectrum(preps[t], int(n)) for t in tmpl])
+            local = np.full(uniq.size, -1)
+            local[tmpl] = np.arange(tmpl.size)
+            rows = np.flatnonzero(local[inverse] >= 0)
+            for a in range(0, rows.size, batch):
+                r = rows[a:a + batch]
+                # segments as long as the bucket's longest template: a shorter one's zero
+                # tail keeps its first n_pos correlations exact (no wrap-around)
+                seg = self._segments(k[r] - m, n_pos + longest - 1)
+                spec = scipy.fft.rfft(seg, int(n), axis=-1)[:, None, :] * specs[local[inverse[r]]]
+                z = scipy.fft.irfft(spec, int(n), axis=-1)[..., :n_pos]
+                found = self._refined(idx[r], cinv[inverse[r]], to_amp[inverse[r]], k[r], z,
+                                      lo[r], hi[r], veto_from)
+                for j, pk in zip(r, found, strict=True):
+                    out[j] = pk
+        return out  # type: ignore[return-value]
 
-    def _refined(self, index: int, prep: _Prepared, k: np.ndarray, z: np.ndarray,
-                 lo: np.ndarray, hi: np.ndarray, veto_from: float) -> list[Peak]:
+    def _refined(self, indices: np.ndarray, cinv: np.ndarray, to_amplitude: np.ndarray,
+                 k: np.ndarray, z: np.ndarray, lo: np.ndarray, hi: np.ndarray,
+                 veto_from: float) -> list[Peak]:
         """Refine around on-grid samples ``k`` from their correlations ``z`` (P, 2K, 2m + 1)
-        at ``k - m .. k + m`` (m = KERNEL_HALF + 1), within [k + lo, k + hi]."""
+        at ``k - m .. k + m`` (m = KERNEL_HALF + 1), within [k + lo, k + hi]; peak p is
+        of template ``indices[p]`` with C^{-1} and G^{-1} as in :meth:`_evaluate_peaks`."""
         n = self.values.size
         valid = self.valid
         lo = np.maximum(lo, -1.0)
@@ -490,7 +536,7 @@ class Probe:
         after = k + 1
         lo = np.where((before >= 0) & valid[np.maximum(before, 0)], lo, np.maximum(lo, 0.0))
         hi = np.where((after < n) & valid[np.minimum(after, n - 1)], hi, np.minimum(hi, 0.0))
-        y = np.matmul(prep.cinv, np.matmul(z, _refine_taps().T))  # (P, 2K, grid)
+        y = np.matmul(cinv, np.matmul(z, _refine_taps().T))  # (P, 2K, grid)
         x = _grid_maximum(np.einsum("pjg,pjg->pg", y, y), lo, hi, REFINE_GRID)
         floor = np.floor(x)
         shift = floor.astype(np.int64)
@@ -498,8 +544,8 @@ class Probe:
         # (base - k) + 2 .. of z, with base - k in {-1, 0, 1}
         first = shift + 2  # m - M + 1 with m = M + 1
         cols = first[:, None] + np.arange(2 * KERNEL_HALF)
-        return self._evaluate(index, k + shift, x - floor, prep, veto_from,
-                              z=np.take_along_axis(z, cols[:, None], axis=2))
+        return self._evaluate_peaks(indices, k + shift, x - floor, cinv, to_amplitude,
+                                    veto_from, np.take_along_axis(z, cols[:, None], axis=2))
 
     def peak(self, index: int, gps_lo: float, gps_hi: float) -> Peak | None:
         """The loudest start of template ``index`` in ``[gps_lo, gps_hi]``, refined.
@@ -548,7 +594,8 @@ class Probe:
             i = np.argmax(rho2, axis=1)
             k = first[r] + i
             cols = i[:, None] + np.arange(2 * m + 1)
-            found = self._refined(index, prep, k, np.take_along_axis(z, cols[:, None], axis=2),
+            found = self._refined(np.full(k.size, int(index)), prep.cinv, prep.to_amplitude,
+                                  k, np.take_along_axis(z, cols[:, None], axis=2),
                                   lo_x[r] - k, hi_x[r] - k, 0.0)
             for row, pk in zip(r, found, strict=True):
                 out[row] = pk
@@ -580,17 +627,26 @@ class Probe:
         prep = prep or self.prepared(index)
         if z is None:
             z = self._correlations(prep, ks - KERNEL_HALF + 1, 2 * KERNEL_HALF)
+        return self._evaluate_peaks(np.full(ks.size, int(index)), ks, fracs, prep.cinv,
+                                    prep.to_amplitude, veto_from, z)
+
+    def _evaluate_peaks(self, indices: np.ndarray, ks: np.ndarray, fracs: np.ndarray,
+                        cinv: np.ndarray, to_amplitude: np.ndarray, veto_from: float,
+                        z: np.ndarray) -> list[Peak]:
+        """:meth:`_evaluate` of peak p of template ``indices[p]``, with its C^{-1} and G^{-1}
+        (``cinv``, ``to_amplitude``: (2K, 2K) for all peaks, or (P, 2K, 2K))."""
         taps = delay_taps(fracs)
         z = np.einsum("pjt,pt->pj", z, taps)  # (P, 2K)
-        y = z @ prep.cinv.T
+        y = np.matmul(cinv, z[..., None])[..., 0]
         snrs = np.sqrt(np.einsum("pj,pj->p", y, y))
-        amps = z @ prep.to_amplitude.T
+        amps = np.matmul(to_amplitude, z[..., None])[..., 0]
         gps = self.t0 + (ks + fracs) / self.sample_rate
         out = []
         for p in range(ks.size):
             snr = float(snrs[p])
+            index = int(indices[p])
             if self.veto_bins is not None and snr >= veto_from:
-                veto = self._veto_of(index, prep)
+                veto = self._veto_of(index, self.prepared(index))
                 r = veto.weights @ self._shifted(ks[p:p + 1] + veto.offset,
                                                  veto.weights.shape[1], fracs[p:p + 1],
                                                  taps[p:p + 1])[0]
@@ -598,7 +654,7 @@ class Probe:
                 rw = float(reweighted_snr(snr, chisq, dof, self.mismatch))
             else:
                 chisq, dof, rw = float("nan"), 0, snr
-            out.append(Peak(int(index), int(ks[p]), float(fracs[p]), float(gps[p]), snr,
+            out.append(Peak(index, int(ks[p]), float(fracs[p]), float(gps[p]), snr,
                             chisq, dof, rw, amps[p]))
         return out
 

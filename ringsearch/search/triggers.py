@@ -192,8 +192,8 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
     ``peaks`` holds per-template on-grid maxima (``template_index``, ``sample``,
     ``snr_grid``) from :func:`ringsearch.search.correlate.filter_peaks`, found
     with the threshold times :data:`GRID_MARGIN`.  Every peak is refined
-    (start time between samples, SNR and amplitudes; vectorised per template,
-    :meth:`~ringsearch.search.probe.Probe.refine_many`), those whose refined
+    (start time between samples, SNR and amplitudes; vectorised over peaks of
+    all templates, :meth:`~ringsearch.search.probe.Probe.refine_batch`), those whose refined
     SNR reaches ``snr_threshold`` are kept and clustered greedily on
     ``snr_reweighted`` within ``cluster_window_s``.  The chi-squared is
     computed lazily: candidates are taken in the order of their raw SNR (an
@@ -217,16 +217,12 @@ def detector_triggers(probe: Probe, peaks: pd.DataFrame, bank: Bank, snr_thresho
     thr = float(snr_threshold)
     ti = peaks["template_index"].to_numpy(int)
     samp = peaks["sample"].to_numpy(np.int64)
-    order = np.argsort(ti, kind="stable")
-    cuts = np.flatnonzero(np.diff(ti[order])) + 1
     heap: list = []
     refined: dict[int, Peak] = {}
-    for rows in np.split(order, cuts) if order.size else []:
-        for i, pk in zip(rows, probe.refine_many(int(ti[rows[0]]), samp[rows],
-                                                 veto_from=math.inf), strict=True):
-            if pk.snr >= thr:
-                refined[int(i)] = pk
-                heap.append((-pk.snr, int(i), 0))
+    for i, pk in enumerate(probe.refine_batch(ti, samp, veto_from=math.inf)):
+        if pk.snr >= thr:
+            refined[i] = pk
+            heap.append((-pk.snr, i, 0))
     heapq.heapify(heap)
     kept_t: list[float] = []
     kept: list[Peak] = []
