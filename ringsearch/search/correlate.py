@@ -460,8 +460,8 @@ class _Pass:
         basis = np.zeros((sum(groups.basis[g].shape[0] for g in gidx), self.n_sup), self.real)
         rows = np.cumsum([0] + [groups.basis[g].shape[0] for g in gidx])
         for i, g in enumerate(gidx):
-            b = groups.basis[g]
-            basis[rows[i]:rows[i + 1], :b.shape[1]] = b[:, :self.n_sup]
+            b = groups.basis[g]  # no longer than the longest template (n_sup samples)
+            basis[rows[i]:rows[i + 1], :b.shape[1]] = b
         spec = np.conj(scipy.fft.rfft(basis, n_fft, axis=-1))
         thr = math.sqrt(self.thr2)
         spans = np.array([int(groups.length[g]) + 2 * reach for g in gidx])
