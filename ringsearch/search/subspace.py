@@ -148,9 +148,20 @@ def principal_rank(coords: np.ndarray, k2: int, eps: float) -> tuple[int, float]
     outer = np.einsum("gir,gjr->rgij", a, a)
     tail = np.concatenate([np.cumsum(outer[::-1], axis=0)[::-1],
                            np.zeros((1, g, k2, k2))])  # tail[R] = sum over r >= R
-    worst = np.linalg.eigvalsh(tail)[..., -1].max(axis=1)  # (rank + 1,)
-    r = int(np.argmax(worst <= eps * eps))
-    return r, float(np.sqrt(max(worst[r], 0.0)))
+
+    def worst(r: int) -> float:
+        return float(np.linalg.eigvalsh(tail[r])[..., -1].max())
+
+    # the worst residual falls as R grows (each added direction can only shrink a
+    # member's residual): bisect for the smallest R within eps
+    lo, hi = 0, rank  # worst(rank) = 0
+    while lo < hi:
+        mid = (lo + hi) // 2
+        if worst(mid) <= eps * eps:
+            hi = mid
+        else:
+            lo = mid + 1
+    return lo, float(np.sqrt(max(worst(lo), 0.0)))
 
 
 def template_groups(f_hz: np.ndarray, tau_s: np.ndarray, grams: Any, response: Any,
