@@ -237,3 +237,17 @@ def test_refining_peaks_of_many_templates_at_once_equals_one_template_at_a_time(
         assert pk.chisq_dof == one.chisq_dof
         if pk.chisq_dof:
             assert pk.chisq == pytest.approx(one.chisq, rel=1e-9)
+
+
+def test_refining_more_templates_than_the_cache_holds_keeps_its_accounting():
+    # regression: a batch holds every template it refines; spectra added to templates the
+    # byte-bounded cache had already let go were counted in its budget forever
+    rng = np.random.default_rng(6)
+    cond = white_data(8.0, FS, rng, f_high=900.0)
+    bank = Bank.from_box((40.0, 160.0), (0.3, 0.9), 1, 0.95, f_high=900.0, seed=0)
+    probe = Probe(cond, bank.f_hz, bank.tau_s, veto_bins=None, cache_bytes=50_000)
+    idx = np.arange(len(bank))
+    probe.refine_batch(idx, np.full(idx.size, int(4 * FS)), veto_from=np.inf)
+    held = sum(p.nbytes for p in probe._cache.values())
+    assert len(probe._cache) < len(bank)  # the cache did let templates go
+    assert probe._used == held

@@ -222,7 +222,7 @@ def filter_peaks(cond: Any, f_hz: np.ndarray, tau_s: np.ndarray, snr_threshold: 
     these templates and data) the data are correlated with each group's
     principal functions instead of every template's basis, and every member
     is evaluated exactly wherever the group's bound reaches the threshold
-    (:mod:`ringsearch.search.subspace`): the same peaks, from a fifth of the
+    (:mod:`ringsearch.search.subspace`): the same peaks, from a ninth of the
     correlations on the target bank.  Groups whose bound would be reached
     too often at this threshold (:func:`~ringsearch.search.subspace.worth_grouping`)
     are filtered template by template, as is everything without ``groups``:

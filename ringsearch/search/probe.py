@@ -167,10 +167,11 @@ class Peak:
 
 
 class _Prepared:
-    __slots__ = ("basis", "cinv", "to_amplitude", "veto", "cond", "nbytes", "spectra")
+    __slots__ = ("index", "basis", "cinv", "to_amplitude", "veto", "cond", "nbytes", "spectra")
 
-    def __init__(self, basis: np.ndarray, cinv: np.ndarray, veto: VetoBasis | None,
-                 cond: float):
+    def __init__(self, index: int, basis: np.ndarray, cinv: np.ndarray,
+                 veto: VetoBasis | None, cond: float):
+        self.index = int(index)
         self.basis = np.ascontiguousarray(basis)  # (2K, L) raw sampled basis
         self.cinv = cinv  # C^{-1}: y = cinv @ z
         self.to_amplitude = np.ascontiguousarray(cinv.T @ cinv)  # G^{-1}: a = G^{-1} z
@@ -348,7 +349,7 @@ class Probe:
         if not self.grams.ok[index]:
             raise InputError(f"template {index} refused: {self.grams.reason[index]}.")
         basis = basis_waveforms(f, tau, template_samples(tau, fs) + 2, fs)
-        out = _Prepared(basis, self.grams.cinv[index], None, float(self.grams.cond[index]))
+        out = _Prepared(index, basis, self.grams.cinv[index], None, float(self.grams.cond[index]))
         self._cache[index] = out
         self._used += out.nbytes
         while self._used > self._cache_bytes and len(self._cache) > 1:
@@ -409,12 +410,14 @@ class Probe:
         return scipy.fft.irfft(spec, n, axis=-1)[..., :n_pos]
 
     def _spectrum(self, prep: _Prepared, n: int) -> np.ndarray:
-        """conj(rfft(basis, n)) of a prepared template, kept with it (counted in the cache)."""
+        """conj(rfft(basis, n)) of a prepared template, kept with it (counted in the cache
+        while the template is in it: a batch may hold templates the cache has let go)."""
         basis_spec = prep.spectra.get(n)
         if basis_spec is None:
             basis_spec = prep.spectra[n] = np.conj(scipy.fft.rfft(prep.basis, n, axis=-1))
             prep.nbytes += basis_spec.nbytes
-            self._used += basis_spec.nbytes
+            if self._cache.get(prep.index) is prep:
+                self._used += basis_spec.nbytes
         return basis_spec
 
     # ------------------------------------------------------------------ evaluation
