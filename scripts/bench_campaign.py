@@ -8,12 +8,15 @@ two-overtone bank, two detectors) with one worker, in whole chunks.  From each r
 markers it separates the CPU time of the chunks holding injections (cost per
 injection) from that of the background units searched once without
 injections, and for the target it extrapolates: the CPU time of its 10,000
-injections plus all its background units, and the wall time on 2 cores.
+injections plus all its background units, and the wall time on 2 cores;
+then it runs ``--scaling-chunks`` chunks of the target with 1 and with 2
+workers (wall time, and the chunks' CPU time to tell a busy machine from a
+poor scaling).
 
 Usage::
 
     .venv/bin/python scripts/bench_campaign.py [--counts 60 120] [--workers 1 2]
-        [--target-count 52] [--json out.json] [--smoke]
+        [--target-count 52] [--scaling-chunks 8] [--json out.json] [--smoke]
 """
 
 from __future__ import annotations
@@ -81,6 +84,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--target-count", type=int, default=52,
                         help="injections of the target campaign's sample, rounded to whole "
                              "chunks (default 52: two chunks)")
+    parser.add_argument("--scaling-chunks", type=int, default=8,
+                        help="chunks of the target campaign run with 1 and with 2 workers "
+                             "(default 8; 0 skips the comparison)")
     add_options(parser)
     args = parser.parse_args(argv)
     examples = [ROOT / "injections" / "quick.toml"]
@@ -151,6 +157,21 @@ def main(argv: list[str] | None = None) -> int:
                     "background units (extrapolated per chunk)")
             out.add("target_wall_2_cores_min", total / 2 / 60, "min",
                     "target: wall time on 2 cores (extrapolated, perfect scaling)")
+            if args.scaling_chunks and 1 in args.workers and 2 in args.workers:
+                # 1 against 2 workers on the target itself, the bank placed once beforehand
+                n = per_chunk * args.scaling_chunks
+                runs = {w: run_one(target, n, w, Path(tmp), max_background=1) for w in (1, 2)}
+                for w, r in runs.items():
+                    rows.append(r)
+                    print(json.dumps(r), flush=True)
+                    out.add(f"target_scaling_w{w}_wall_s", r["wall_s"], "s",
+                            f"target, {n} injections, {w} worker(s): wall time")
+                out.add("target_scaling_speedup", runs[1]["wall_s"] / runs[2]["wall_s"], "x",
+                        f"target, {n} injections: wall(1 worker) / wall(2 workers)")
+                out.add("target_scaling_cpu_ratio",
+                        runs[2]["chunk_cpu_s"] / runs[1]["chunk_cpu_s"], "x",
+                        f"target, {n} injections: chunk CPU with 2 workers / with 1 (above 1 "
+                        "when the two share a busy machine's cores)")
     print()
     print(pd.DataFrame(rows).to_string(index=False))
     out.emit(args)

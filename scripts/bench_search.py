@@ -68,7 +68,8 @@ def main(argv: list[str] | None = None) -> int:
     f_hi = min(c.f_high for c in conds.values())
     box = ((50.0, 100.0), (0.3, 0.9)) if args.smoke else ((20.0, 200.0), (0.0, 0.99))
     w_bank = time.perf_counter()
-    bank = Bank.from_box(*box, args.overtones, args.min_match, psd=_combined_psd(conds),
+    network = _combined_psd({d: c.psd for d, c in conds.items()})
+    bank = Bank.from_box(*box, args.overtones, args.min_match, psd=network,
                          f_low=20.0, f_high=f_hi, seed=args.seed)
     bank_wall = time.perf_counter() - w_bank
     out = Figures(f"search: {len(bank)} templates (N = {args.overtones}), "

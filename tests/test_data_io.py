@@ -191,6 +191,21 @@ def test_missing_and_non_strain_files(tmp_path):
         read_strain([])
 
 
+def test_two_dimensional_strain_is_refused(tmp_path):
+    """Shapes (N, 2) and (2, N) with Npoints equal to the flattened size (found by an
+    independent trial to end in a numpy broadcast error) name the file and the shape."""
+    from ringsearch.data.io import open_detectors
+
+    for shape in [(64, 2), (2, 64)]:
+        path = tmp_path / f"H-H1_BAD-{shape[0]}.hdf5"
+        with h5py.File(path, "w") as f:
+            d = f.create_dataset("strain/Strain", data=np.full(shape, 1e-21))
+            d.attrs.update({"Xstart": 0.0, "Xspacing": 1 / 64, "Npoints": 128})
+        for reader in (read_strain, open_detectors):
+            with pytest.raises(InputError, match=r"shape \(%d, %d\).*one-dimensional" % shape):
+                reader(path)
+
+
 def test_truncated_file(tmp_path, sim):
     full = write_gwosc_hdf5(sim, tmp_path / "full.hdf5")
     cut = tmp_path / "cut.hdf5"

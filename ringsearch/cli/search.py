@@ -64,6 +64,12 @@ slide), refused.parquet (templates a detector could not use), bank.parquet,
 summary.json (loudest trigger per detector, candidates resolved by trigger id,
 FAR method, analysed segments) and plots/*.png.
 
+long data (more than about two --stretch lengths) are read, conditioned, filtered
+and vetoed stretch by stretch, with margins that make each stretch's triggers and
+candidates those of the whole series (checked at every boundary, widened where
+not); each stretch whitens with its own PSD (unless --psd-from) and makes its own
+time slides, and every FAR comes from the pooled background of all stretches.
+
 what a candidate is not: a detection claim.  Its FAR comes from the data given
 (tens of seconds around an event hold few independent slides) and says nothing
 about data quality or instrumental artefacts; claims need a background over far
@@ -157,6 +163,12 @@ def register(subparsers) -> None:
                    help="pieces of the chi-squared veto, an integer >= 2 (default 8)")
     p.add_argument("--veto-domain", choices=("time", "frequency"), default="time",
                    help="split the template into time slices (default) or frequency bands")
+    p.add_argument("--stretch", type=float, default=512.0, metavar="S",
+                   help="search data longer than about two stretches of S seconds stretch by "
+                        "stretch: memory stays near that of one stretch (about 0.6 GB for two "
+                        "detectors at 4096 Hz) and each stretch estimates its own PSD and "
+                        "slides its own data (default 512; 0 searches the whole series at "
+                        "once)")
     p.add_argument("--no-plots", action="store_true", help="skip the figures")
     # --gps-start already is the searched window here, so only --data-start
     add_strain_input_options(p, start_flags=("--data-start",))
@@ -181,7 +193,8 @@ def run(args: argparse.Namespace) -> int:
         veto_bins=args.veto_bins, veto_domain=args.veto_domain, tolerance_s=args.tolerance,
         n_slides=args.slides, slide_step_s=args.slide_step, f_low=args.f_low,
         f_high=args.f_high, gate_threshold=args.gate_threshold, dq_level=args.dq_level,
-        gps_start=args.gps_start, gps_end=args.gps_end, cluster_window_s=args.cluster_window)
+        gps_start=args.gps_start, gps_end=args.gps_end, cluster_window_s=args.cluster_window,
+        stretch_s=None if args.stretch == 0 else args.stretch)
     search = Search(config, bank=bank)
     read = pipeline_read_kwargs(args)
     psds = search.estimate_psds(args.psd_from, **read) if args.psd_from else None
@@ -202,6 +215,9 @@ def _print(res) -> None:
                   f"mass {v['mass']:.1f} spin {v['spin']:.2f} f220 {v['f_hz']:.1f} Hz")
         else:
             print(f"{det}: no trigger above threshold")
+    if "stretches" in s:
+        print(f"searched in {s['stretches']['n_stretches']} stretches of about "
+              f"{s['stretches']['stretch_s']:g} s (each with its own PSD and time slides)")
     print(f"significance: {s['significance']['method']}")
     if not s["candidates"]:
         print(s.get("note", "no candidate"))

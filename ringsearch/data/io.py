@@ -73,7 +73,7 @@ class _FileStrain:
     detector: str
     t0: float
     sample_rate: float
-    data: np.ndarray
+    data: np.ndarray  # or _Hdf5Samples when read lazily
     dq_mask: np.ndarray | None = None
     dq_names: list[str] | None = None
     inj_mask: np.ndarray | None = None
@@ -144,13 +144,24 @@ def _decode(value) -> str:
     return str(value)
 
 
-def _check_values(data: np.ndarray, path: Path) -> None:
-    """Reject strain that is all-NaN, all-zero or obviously not in strain units."""
-    finite = np.isfinite(data)
-    if not finite.any():
+#: Samples checked at once when a file's strain is read lazily (32 MB of float64).
+_CHECK_BLOCK = 1 << 22
+
+
+def _check_values(data, path: Path) -> None:
+    """Reject strain that is all-NaN, all-zero or obviously not in strain units.
+
+    ``data`` is an array or lazily read samples (:class:`_Hdf5Samples`), checked
+    block by block so that memory follows the block."""
+    peak, any_finite = 0.0, False
+    for a in range(0, int(data.size), _CHECK_BLOCK):
+        block = np.asarray(data[a:a + _CHECK_BLOCK], float)
+        finite = np.isfinite(block)
+        if finite.any():
+            any_finite = True
+            peak = max(peak, float(np.abs(block[finite]).max()))
+    if not any_finite:
         raise InputError(f"file {path} holds no finite strain samples (only NaN or inf).")
-    values = np.abs(data[finite])
-    peak = float(values.max())
     if peak == 0.0:
         raise InputError(f"file {path} holds only zeros, not detector strain.")
     if peak > MAX_STRAIN:
@@ -162,7 +173,24 @@ def _check_values(data: np.ndarray, path: Path) -> None:
 
 # ----------------------------------------------------------------------------- readers
 
-def _read_hdf5(path: Path, detector: str | None) -> _FileStrain:
+class _Hdf5Samples:
+    """A GWOSC file's strain samples, read from disk slice by slice when indexed."""
+
+    def __init__(self, path: Path, size: int):
+        self.path, self.size = path, int(size)
+
+    def __getitem__(self, index: slice) -> np.ndarray:
+        import h5py
+
+        try:
+            with h5py.File(self.path, "r") as f:
+                return np.asarray(f["strain/Strain"][index], dtype=np.float64)
+        except (OSError, KeyError, ValueError) as exc:
+            raise InputError(f"file {self.path} could not be read again ({reason(exc)}); "
+                             "was it changed or removed during the search?") from None
+
+
+def _read_hdf5(path: Path, detector: str | None, lazy: bool = False) -> _FileStrain:
     import h5py
 
     try:
@@ -183,7 +211,11 @@ def _read_hdf5(path: Path, detector: str | None) -> _FileStrain:
                                  "on strain/Strain.") from None
             if not (dt > 0 and math.isfinite(dt) and math.isfinite(t0)):
                 raise InputError(f"file {path} has an invalid sample spacing {dt!r}.")
-            data = np.asarray(dset[()], dtype=np.float64)
+            if dset.ndim != 1:
+                raise InputError(f"file {path} holds strain/Strain of shape {dset.shape}; "
+                                 "strain must be one-dimensional.")
+            data = _Hdf5Samples(path, int(dset.shape[0])) if lazy else \
+                np.asarray(dset[()], dtype=np.float64)
             npts = dset.attrs.get("Npoints")
             if npts is not None and int(npts) != data.size:
                 raise InputError(f"file {path} is truncated: strain/Strain holds "
@@ -354,7 +386,8 @@ def _looks_like_hdf5(path: Path) -> bool:
 
 
 def _load_file(path: str | os.PathLike, detector: str | None = None,
-               sample_rate: float | None = None, gps_start: float | None = None) -> _FileStrain:
+               sample_rate: float | None = None, gps_start: float | None = None,
+               lazy: bool = False) -> _FileStrain:
     path = Path(path)
     if not path.exists():
         raise InputError(f"strain file {path} does not exist.")
@@ -365,7 +398,7 @@ def _load_file(path: str | os.PathLike, detector: str | None = None,
     suffix = path.suffix.lower()
     if suffix in _HDF5_SUFFIXES or (suffix not in _TEXT_SUFFIXES and suffix != ".gwf"
                                     and _looks_like_hdf5(path)):
-        out = _read_hdf5(path, detector)
+        out = _read_hdf5(path, detector, lazy)
     elif suffix == ".gwf":
         out = _read_gwf(path, detector)
     else:
@@ -412,9 +445,8 @@ def _load_all(paths, detector, sample_rate, gps_start) -> list[_FileStrain]:
     return sorted(files, key=lambda f: f.t0)
 
 
-def _join(files: list[_FileStrain]):
-    from gwpy.timeseries import TimeSeries
-
+def _offsets(files: list[_FileStrain]) -> list[int]:
+    """Each file's first sample on the first file's grid; refuses overlaps and misalignment."""
     fs = files[0].sample_rate
     t0 = files[0].t0
     offsets = []
@@ -429,6 +461,15 @@ def _join(files: list[_FileStrain]):
             raise InputError(f"file {f.path} does not start on the sample grid of file "
                              f"{files[0].path}; its samples are misaligned.")
         offsets.append(int(round(off)))
+    return offsets
+
+
+def _join(files: list[_FileStrain]):
+    from gwpy.timeseries import TimeSeries
+
+    fs = files[0].sample_rate
+    t0 = files[0].t0
+    offsets = _offsets(files)
     n = offsets[-1] + files[-1].data.size
     data = np.full(n, np.nan)
     for off, f in zip(offsets, files, strict=True):
@@ -712,6 +753,58 @@ def write_gwosc_hdf5(strain, path: str | os.PathLike, dq_mask: Iterable[int] | N
             meta["Type"] = "StrainTimeSeries"
             meta["Description"] = description or "Synthetic strain written by ringsearch"
     return Path(path)
+
+
+def open_detectors(paths, dq_level: str = DEFAULT_DQ_LEVEL, injections: str = "exclude",
+                   detector: str | None = None, sample_rate: float | None = None,
+                   gps_start: float | None = None) -> dict:
+    """Open files of one or more detectors for reading stretch by stretch.
+
+    Like :func:`read_detectors`, with the same checks and segments, but HDF5
+    strain stays on disk until a stretch is read
+    (:meth:`~ringsearch.data.sources.StrainSource.read`); other formats are
+    read whole.  Checking the files reads each once, block by block.
+
+    Returns
+    -------
+    dict
+        ``{detector: StrainSource}`` in the order detectors first appear.
+
+    Examples
+    --------
+    >>> srcs = open_detectors(["H-H1_LOSC_4_V2-1126259446-32.hdf5"])  # doctest: +SKIP
+    >>> srcs["H1"].read(0, 4096)[0].duration  # doctest: +SKIP
+    <Quantity 1. s>
+    """
+    from gwpy.segments import SegmentList
+
+    from ringsearch.data.sources import StrainSource, check_same_grid
+
+    level = _check_level(dq_level, injections)
+    files = [_load_file(p, detector, sample_rate, gps_start, lazy=True)
+             for p in _as_paths(paths)]
+    _check_one_detector(files, detector)
+    groups: dict[str, list[_FileStrain]] = {}
+    for f in files:
+        groups.setdefault(f.detector, []).append(f)
+    out = {}
+    for det, group in groups.items():
+        group.sort(key=lambda f: f.t0)
+        other = next((f for f in group if f.sample_rate != group[0].sample_rate), None)
+        if other is not None:
+            raise InputError(f"file {other.path} is sampled at {other.sample_rate:g} Hz but file "
+                             f"{group[0].path} at {group[0].sample_rate:g} Hz; resample one of "
+                             "them first.")
+        offsets = _offsets(group)
+        segs = SegmentList()
+        for f in group:
+            segs |= _file_quality(f, level, injections)
+        out[det] = StrainSource(det, group[0].t0, group[0].sample_rate,
+                                offsets[-1] + int(group[-1].data.size),
+                                [(o, f.data) for o, f in zip(offsets, group, strict=True)],
+                                segs.coalesce(), [str(f.path) for f in group])
+    check_same_grid(list(out.values()))
+    return out
 
 
 def read_detectors(paths, dq_level: str = DEFAULT_DQ_LEVEL, injections: str = "exclude",

@@ -79,6 +79,45 @@ def _groups(targets: Mapping[str, Any], reach: float) -> list[dict]:
              for d, segs in targets.items()} for g in hull]
 
 
+def certify(zones: Mapping[str, Any], contenders: Mapping[str, pd.DataFrame],
+            events: pd.DataFrame | None, window_s: float, half_s: float) -> tuple[dict, Any]:
+    """Where a partial search's triggers and candidates equal the whole series'.
+
+    Parameters
+    ----------
+    zones : mapping detector -> SegmentList
+        Start times where the partial search saw every refined peak the whole
+        series has, with the same values.
+    contenders : mapping detector -> DataFrame
+        The refined peaks its clustering chose from (``gps``, ``lower``,
+        ``upper``: :func:`~ringsearch.search.triggers.detector_triggers`).
+    events : DataFrame or None
+        Its unclustered zero-lag network events (None: one detector).
+    window_s, half_s : float
+        Cluster window and the widest coincidence window.
+
+    Returns
+    -------
+    (dict, SegmentList)
+        Per detector the times where its triggers are the whole series'
+        (:func:`~ringsearch.search.triggers.stable_segments`), and the times
+        where the candidates anchored there are: for one detector its
+        triggers', for several the stable part of the network events seeded
+        where every detector's triggers, and every own-trigger lookup within
+        ``half_s``, are exact.
+    """
+    stable = {d: stable_segments(zones[d], c["gps"], c["lower"], c["upper"], window_s)
+              for d, c in contenders.items()}
+    if events is None:
+        return stable, next(iter(stable.values()))
+    exact = None
+    for part in stable.values():
+        part = _contract(part, half_s)
+        exact = part if exact is None else exact & part
+    return stable, stable_segments(exact.coalesce(), events["gps"], events["network_snr"],
+                                   events["network_snr"], window_s)
+
+
 def search_at_times(search: Any, conds: Mapping[str, Any], bank: Any,
                     probes: Mapping[str, Any], at: Mapping[str, Any],
                     valid: Mapping[str, Any], progress: bool = False) -> dict:
@@ -139,20 +178,9 @@ def search_at_times(search: Any, conds: Mapping[str, Any], bank: Any,
         if regions is None:
             certified = None  # the whole series is its own certificate
         else:
-            stable = {}
-            for d, c in conds.items():
-                zone = _contract(regions[d], 2.0 / float(c.sample_rate))  # refinement reach
-                cont = contenders[d]
-                stable[d] = stable_segments(zone, cont["gps"], cont["lower"], cont["upper"], w)
-            if len(dets) == 1:
-                certified = stable[dets[0]]
-            else:
-                exact = None
-                for d in dets:  # every seed and every own-trigger lookup exact
-                    part = _contract(stable[d], half)
-                    exact = part if exact is None else exact & part
-                certified = stable_segments(exact.coalesce(), raw["gps"], raw["network_snr"],
-                                            raw["network_snr"], w)
+            zones = {d: _contract(regions[d], 2.0 / float(c.sample_rate))  # refinement reach
+                     for d, c in conds.items()}
+            certified = certify(zones, contenders, None if len(dets) == 1 else raw, w, half)[1]
         left = []
         for g in pending:
             if certified is not None and any(abs(g[d] - certified) > 0 for d in dets):
@@ -170,7 +198,7 @@ def search_at_times(search: Any, conds: Mapping[str, Any], bank: Any,
     if not cand_parts:
         trig_parts, cand_parts = [trig.iloc[:0].assign(_round=0)], [events.iloc[:0].assign(
             _round=0)]
-    trig, cands = _renumber(trig_parts, cand_parts, dets)
+    trig, cands, _ = renumber(trig_parts, cand_parts, dets)
     for col in FAR_COLUMNS:
         cands[col] = pd.Series(np.nan, index=cands.index, dtype=float)
     cands = cands.sort_values("network_snr", ascending=False, kind="stable").reset_index(
@@ -180,11 +208,18 @@ def search_at_times(search: Any, conds: Mapping[str, Any], bank: Any,
             "rounds": rounds}
 
 
-def _renumber(trig_parts: list, cand_parts: list, dets: list) -> tuple[pd.DataFrame,
-                                                                       pd.DataFrame]:
-    """One trigger table across rounds (each trigger once, ids in time order) and the
-    candidates with their trigger ids mapped to it."""
-    key = ["detector", "template_index", "gps"]
+def renumber(trig_parts: list, cand_parts: list, dets: list,
+             key: tuple[str, ...] = ("detector", "template_index", "gps")
+             ) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
+    """One trigger table from parts (each trigger once, ids in time order) and the
+    candidates with their trigger ids mapped to it.
+
+    Parts carry a ``_round`` column naming the search that made them; a
+    trigger is the same in two parts when its ``key`` columns are, and the
+    first part holding it gives its row.  Returns the triggers, the candidates
+    and the lookup ``(round, old id) -> new id`` (see :func:`remap_ids`).
+    """
+    key = list(key)
     trig = pd.concat(trig_parts, ignore_index=True)
     uniq = trig.drop_duplicates(key).sort_values(["gps", "detector"], kind="stable")
     uniq = uniq.drop(columns=["trigger_id", "_round"]).reset_index(drop=True)
@@ -193,11 +228,17 @@ def _renumber(trig_parts: list, cand_parts: list, dets: list) -> tuple[pd.DataFr
         uniq[["trigger_id", *key]].rename(columns={"trigger_id": "new_id"}), on=key)
     lookup = {(int(r), int(o)): int(n) for r, o, n in
               zip(ids["_round"], ids["trigger_id"], ids["new_id"], strict=True)}
-    cands = pd.concat(cand_parts, ignore_index=True)
-    id_cols = [f"{d}_trigger_id" for d in dets] if len(dets) > 1 else ["trigger_id"]
-    for c in id_cols:
-        cands[c] = np.array([lookup.get((int(r), int(o)), -1) if o >= 0 else -1 for r, o in
-                             zip(cands["_round"], cands[c], strict=True)], np.int64)
+    cands = remap_ids(pd.concat(cand_parts, ignore_index=True), lookup, dets)
     subset = ["anchor_detector", "gps", "template_index"] if len(dets) > 1 else key
     cands = cands.drop_duplicates(subset).drop(columns="_round").reset_index(drop=True)
-    return uniq, cands
+    return uniq, cands, lookup
+
+
+def remap_ids(table: pd.DataFrame, lookup: dict, dets: list) -> pd.DataFrame:
+    """``table`` (with ``_round``), its trigger-id columns mapped by ``lookup`` (-1 if absent)."""
+    table = table.copy()
+    id_cols = [f"{d}_trigger_id" for d in dets] if len(dets) > 1 else ["trigger_id"]
+    for c in id_cols:
+        table[c] = np.array([lookup.get((int(r), int(o)), -1) if o >= 0 else -1 for r, o in
+                             zip(table["_round"], table[c], strict=True)], np.int64)
+    return table

@@ -48,6 +48,7 @@ from ringsearch.search.network import (
     TIMING_TOLERANCE_S,
     check_tolerance,
     coincidence_windows,
+    empty_events,
     light_travel_time,
     max_distinct_slides,
     network_events,
@@ -62,6 +63,7 @@ from ringsearch.search.significance import (
     rate_at,
     single_detector_far,
 )
+from ringsearch.search.stretches import MIN_STRETCH_S, STRETCH_S, n_stretches, search_stretches
 from ringsearch.search.triggers import GRID_MARGIN, detector_triggers, loudest
 from ringsearch.search.veto import (
     DEFAULT_BINS,
@@ -122,6 +124,12 @@ class SearchConfig:
         GWOSC data-quality level required of file data.
     gps_start, gps_end : float or None
         Only templates starting in this window make triggers.
+    stretch_s : float or None
+        Strain longer than about two stretches is searched stretch by
+        stretch (:mod:`ringsearch.search.stretches`): each reads, conditions
+        and filters about this many seconds, so memory does not grow with
+        the data; each estimates its own PSD and makes its own time slides.
+        None searches the whole series at once.
     """
 
     mass: tuple[float, float] = (20.0, 200.0)
@@ -144,6 +152,7 @@ class SearchConfig:
     dq_level: str = "CBC_CAT2"
     gps_start: float | None = None
     gps_end: float | None = None
+    stretch_s: float | None = STRETCH_S
 
     def validated(self, bank: Bank | None = None) -> SearchConfig:
         """A checked copy (defaults filled in); InputError naming the first bad value.
@@ -186,6 +195,10 @@ class SearchConfig:
                              f"got {self.cluster_window_s}.")
         bins = check_bins(self.veto_bins)
         domain = check_domain(self.veto_domain)
+        if self.stretch_s is not None and not (math.isfinite(float(self.stretch_s)) and
+                                               float(self.stretch_s) >= MIN_STRETCH_S):
+            raise InputError(f"stretch length must be at least {MIN_STRETCH_S:g} s (or None for "
+                             f"the whole series at once), got {self.stretch_s}.")
         if not (math.isfinite(float(self.psd_seglen_s)) and self.psd_seglen_s > 0):
             raise InputError(f"PSD segment length must be a positive number of seconds, "
                              f"got {self.psd_seglen_s}.")
@@ -247,16 +260,26 @@ def _is_conditioned(x: Any) -> bool:
     return hasattr(x, "filter_response") and hasattr(x, "whitened")
 
 
-def _combined_psd(conds: Mapping[str, Any]) -> tuple[np.ndarray, np.ndarray]:
+def _given_psd(psds: Mapping[str, Any] | None, det: str) -> Any:
+    """The PSD given for a detector (None when none are given); InputError when one is missing."""
+    if psds is None:
+        return None
+    if psds.get(det) is None:
+        raise InputError(f"no PSD was given for detector {det} (PSDs given for "
+                         f"{', '.join(psds) or 'none'}).")
+    return psds[det]
+
+
+def _combined_psd(psds: Mapping[str, Any]) -> tuple[np.ndarray, np.ndarray]:
     """Network noise for bank placement: 1 / mean(1/S) on the first detector's grid."""
-    first = next(iter(conds.values())).psd
+    first = next(iter(psds.values()))
     f = np.asarray(first.frequencies.value, float)
     inv = np.zeros_like(f)
-    for c in conds.values():
-        pf, pv = np.asarray(c.psd.frequencies.value, float), np.asarray(c.psd.value, float)
+    for psd in psds.values():
+        pf, pv = np.asarray(psd.frequencies.value, float), np.asarray(psd.value, float)
         with np.errstate(divide="ignore"):
             inv += np.interp(f, pf, np.where(pv > 0, 1 / pv, 0.0))
-    inv /= len(conds)
+    inv /= len(psds)
     good = inv > 0
     return f[good], 1 / inv[good]
 
@@ -272,7 +295,8 @@ class SearchResult:
     bank : Bank
         The templates (``template_id`` / ``template_index`` columns refer to it).
     conditioned : dict
-        Detector -> ConditionedData.
+        Detector -> ConditionedData (data searched in stretches: the stretch
+        of the loudest candidate, :mod:`ringsearch.search.stretches`).
     triggers : DataFrame
         Every detector's clustered triggers (columns in :mod:`ringsearch.search.triggers`).
     candidates : DataFrame
@@ -322,7 +346,18 @@ class SearchResult:
 
     @property
     def detectors(self) -> list[str]:
-        return list(self.conditioned)
+        return list(self.analysed_s)
+
+    def analysable(self) -> dict:
+        """Detector -> SegmentList of the analysable times of all the data searched.
+
+        Examples
+        --------
+        >>> res.analysable()["H1"]  # doctest: +SKIP
+        """
+        if "analysable" in self.extra:
+            return dict(self.extra["analysable"])
+        return {d: c.analysable for d, c in self.conditioned.items()}
 
     @property
     def background_s(self) -> float:
@@ -431,7 +466,8 @@ class SearchResult:
         into place, so an error leaves nothing behind.  Files:
         ``triggers.parquet``, ``candidates.parquet``, ``background.parquet``,
         ``slides.parquet``, ``refused.parquet``, ``bank.parquet``,
-        ``summary.json`` and ``plots/*.png``.
+        ``summary.json``, ``plots/*.png`` and, for data searched in stretches,
+        ``stretches.parquet`` (owned GPS interval and margin of each).
 
         Examples
         --------
@@ -446,6 +482,9 @@ class SearchResult:
                                 ("refused", self.refused)):
                 with atomic_path(stage / f"{name}.parquet") as tmp:
                     table.to_parquet(tmp, index=False)
+            if "stretches" in self.extra:
+                with atomic_path(stage / "stretches.parquet") as tmp:
+                    self.extra["stretches"].to_parquet(tmp, index=False)
             self.bank.save(stage / "bank.parquet")
             summary = dict(self.summary)
             if plots:
@@ -515,21 +554,13 @@ class Search:
 
         cfg = self.config
         items = self._strain_items(data, detector, sample_rate, data_start)
-        from ringsearch.data.condition import condition
-
         conds: dict = {}
         for det, item in items.items():
             if _is_conditioned(item):
                 conds[det] = item
                 continue
             ts, segs = item if isinstance(item, tuple) else (item, None)
-            psd = None if psds is None else psds.get(det)
-            if psds is not None and psd is None:
-                raise InputError(f"no PSD was given for detector {det} (PSDs given for "
-                                 f"{', '.join(psds) or 'none'}).")
-            conds[det] = condition(ts, f_low=cfg.f_low, f_high=cfg.f_high, psd=psd,
-                                   seglen=cfg.psd_seglen_s, analysable=segs,
-                                   gate_threshold=cfg.gate_threshold)
+            conds[det] = self.condition_one(ts, segs, _given_psd(psds, det))
         if cfg.gps_start is not None or cfg.gps_end is not None:
             for det, c in conds.items():
                 t0 = float(c.t0)
@@ -549,6 +580,20 @@ class Search:
                 raise InputError(f"no analysable time is left in the {det} data after data "
                                  "quality, gating and the GPS window.")
         return conds
+
+    def condition_one(self, strain: Any, segments: Any = None, psd: Any = None) -> Any:
+        """One detector's strain conditioned as this search conditions it.
+
+        Examples
+        --------
+        >>> cond = Search().condition_one(strain, segs)  # doctest: +SKIP
+        """
+        from ringsearch.data.condition import condition
+
+        cfg = self.config
+        return condition(strain, f_low=cfg.f_low, f_high=cfg.f_high, psd=psd,
+                         seglen=cfg.psd_seglen_s, analysable=segments,
+                         gate_threshold=cfg.gate_threshold)
 
     def _strain_items(self, data: Any, detector: str | None, sample_rate: float | None,
                       data_start: float | None) -> dict:
@@ -601,11 +646,23 @@ class Search:
         """
         if self.bank is not None:
             return self.bank
+        return self.place_bank({d: c.psd for d, c in conds.items()},
+                               max(float(c.f_low) for c in conds.values()),
+                               min(float(c.f_high) for c in conds.values()), progress)
+
+    def place_bank(self, psds: Mapping[str, Any], f_low: float, f_high: float,
+                   progress: bool = False) -> Bank:
+        """The given bank, or one placed over the box with the combined noise of ``psds``.
+
+        Examples
+        --------
+        >>> bank = Search(mass=(50, 80)).place_bank(psds, 20.0, 1638.4)  # doctest: +SKIP
+        """
+        if self.bank is not None:
+            return self.bank
         cfg = self.config
-        f_hi = min(float(c.f_high) for c in conds.values())
-        f_lo = max(float(c.f_low) for c in conds.values())
         return Bank.from_box(cfg.mass, cfg.spin, cfg.n_overtones, cfg.min_match,
-                             psd=_combined_psd(conds), f_low=f_lo, f_high=f_hi,
+                             psd=_combined_psd(psds), f_low=f_low, f_high=f_high,
                              seed=cfg.bank_seed, progress=progress)
 
     def _gps_window(self) -> tuple[float, float] | None:
@@ -760,29 +817,98 @@ class Search:
         --------
         >>> res = Search(n_slides=20).run(files)  # doctest: +SKIP
         """
+        cfg = self.config
+        if at is None and cfg.stretch_s is not None and not (
+                isinstance(data, Mapping) and any(_is_conditioned(x) for x in data.values())):
+            sources = self.sources(data, detector, sample_rate, data_start)
+            if n_stretches(sources, cfg.stretch_s, self._gps_window()) > 1:
+                given = None if psds is None else {d: _given_psd(psds, d) for d in sources}
+                fields = search_stretches(self, sources, psds=given,
+                                          background_exclude=background_exclude,
+                                          progress=progress)
+                return SearchResult(cfg, **fields)
+            data = {d: src.read(0, src.n_samples) for d, src in sources.items()}
+            detector = sample_rate = data_start = None
         conds = self.condition(data, psds=psds, detector=detector, sample_rate=sample_rate,
                                data_start=data_start)
         bank = self.make_bank(conds, progress=progress)
-        cfg = self.config
         dets = list(conds)
         probes = self.probes(conds, bank)
         valid = {d: self._valid(c, bank) for d, c in conds.items()}
         if at is not None:
             return self._at_times(conds, bank, probes, at, valid, progress)
         trig, refused, analysed = self.triggers(conds, bank, probes, progress=progress)
-        window = self.cluster_window(bank)
         extra: dict[str, Any] = {}
         if len(dets) == 1:
-            d = dets[0]
-            cands = single_detector_far(trig, analysed[d], column="snr_reweighted")
-            cands.insert(2, "network_snr", cands["snr_reweighted"])
-            cands = cands.sort_values("network_snr", ascending=False,
-                                      kind="stable").reset_index(drop=True)
-            slides = pd.DataFrame({"slide": [0], f"shift_{d}_s": [0.0],
-                                   "live_s": [analysed[d]]})
-            return SearchResult(cfg, bank, conds, trig, cands, _empty_background(dets), slides,
+            cands, slides = self.single_detector_candidates(trig, dets[0], analysed[dets[0]])
+            return SearchResult(cfg, bank, conds, trig, cands, empty_events(dets), slides,
                                 refused, analysed, SINGLE_METHOD, probes, extra, valid)
         zero_plan = slide_plan(valid, 0, 1.0)[0]
+        zero = network_events(probes, trig, zero_plan, cfg.tolerance_s,
+                              self.cluster_window(bank), bank, bank.on_box_edge())
+        plan, background = self.time_slides(probes, trig, valid, bank, background_exclude,
+                                            progress)
+        slides = slide_table(dets, [zero_plan, *plan])
+        extra["slide_step_s"] = self.slide_step(dets, bank)
+        cands = self.ranked(zero, background, slides, dets, extra)
+        extra["coincident_time_s"] = zero_plan.live_s
+        return SearchResult(cfg, bank, conds, trig, cands, background, slides, refused,
+                            analysed, SLIDES_METHOD, probes, extra, valid)
+
+    def sources(self, data: Any, detector: str | None = None, sample_rate: float | None = None,
+                data_start: float | None = None) -> dict:
+        """Paths or ``{det: series | (series, segments)}`` -> ``{det: StrainSource}``.
+
+        Files are opened, not read (HDF5 strain is read stretch by stretch).
+
+        Examples
+        --------
+        >>> Search().sources(["H-H1_LOSC_4_V2-1126259446-32.hdf5"])["H1"].n_samples
+        ... # doctest: +SKIP
+        131072
+        """
+        from ringsearch.data.sources import StrainSource, check_same_grid
+
+        if isinstance(data, Mapping):
+            self._strain_items(data, detector, sample_rate, data_start)  # argument checks
+            out = {}
+            for det, item in data.items():
+                ts, segs = item if isinstance(item, tuple) else (item, None)
+                out[det] = StrainSource.from_series(ts, segs)
+                out[det].detector = str(det)
+            check_same_grid(list(out.values()))
+            return out
+        from ringsearch.data.io import open_detectors
+
+        paths = [data] if isinstance(data, str | bytes) or hasattr(data, "__fspath__") \
+            else list(data)
+        if not paths:
+            raise InputError("no strain files given.")
+        return open_detectors(paths, dq_level=self.config.dq_level, detector=detector,
+                              sample_rate=sample_rate, gps_start=data_start)
+
+    def single_detector_candidates(self, trig: pd.DataFrame, det: str,
+                                   analysed_s: float) -> tuple[pd.DataFrame, pd.DataFrame]:
+        """One detector's candidates (its triggers, FAR from the others) and slides table."""
+        cands = single_detector_far(trig, analysed_s, column="snr_reweighted")
+        cands.insert(2, "network_snr", cands["snr_reweighted"])
+        cands = cands.sort_values("network_snr", ascending=False,
+                                  kind="stable").reset_index(drop=True)
+        slides = pd.DataFrame({"slide": [0], f"shift_{det}_s": [0.0], "live_s": [analysed_s]})
+        return cands, slides
+
+    def time_slides(self, probes: Mapping[str, Probe], trig: pd.DataFrame,
+                    valid: Mapping[str, Any], bank: Bank,
+                    background_exclude: Mapping[str, Any] | None = None,
+                    progress: bool = False) -> tuple[list, pd.DataFrame]:
+        """The time slides that fit the valid start times, and their network events.
+
+        Examples
+        --------
+        >>> plan, background = search.time_slides(probes, trig, valid, bank)  # doctest: +SKIP
+        """
+        cfg = self.config
+        dets = list(valid)
         if background_exclude:
             from gwpy.segments import Segment, SegmentList
 
@@ -799,16 +925,22 @@ class Search:
             n_fit = 0
         n_use = min(cfg.n_slides, n_fit)
         plan = slide_plan(bg_valid, n_use, step)[1:] if n_use else []
-        zero = network_events(probes, trig, zero_plan, cfg.tolerance_s, window, bank,
-                              bank.on_box_edge())
-        background = (network_events(probes, trig, plan, cfg.tolerance_s, window, bank,
-                                     bank.on_box_edge(), progress=progress)
-                      if plan else _empty_background(dets))
-        slides = pd.DataFrame({"slide": [0] + [s.index for s in plan],
-                               **{f"shift_{d}_s": [0.0] + [s.shifts[d] for s in plan]
-                                  for d in dets},
-                               "live_s": [zero_plan.live_s] + [s.live_s for s in plan]})
-        t_bg = float(sum(s.live_s for s in plan))
+        background = (network_events(probes, trig, plan, cfg.tolerance_s,
+                                     self.cluster_window(bank), bank, bank.on_box_edge(),
+                                     progress=progress)
+                      if plan else empty_events(dets))
+        return plan, background
+
+    def ranked(self, zero: pd.DataFrame, background: pd.DataFrame, slides: pd.DataFrame,
+               dets: list[str], extra: dict) -> pd.DataFrame:
+        """Zero-lag events with their FAR from the background, loudest first.
+
+        ``slides`` is the table of :func:`slide_table`; ``extra`` receives the
+        slide figures of the summary (and a note when no slide fits).
+        """
+        step = extra.get("slide_step_s")
+        n_use = int((slides["slide"] > 0).sum())
+        t_bg = float(slides.loc[slides["slide"] > 0, "live_s"].sum())
         if n_use > 0 and t_bg > 0:
             cands = assign_far(zero, background, t_bg, dets)
         else:
@@ -817,12 +949,9 @@ class Search:
                 cands[col] = pd.Series(dtype=float)
             extra["note"] = ("the coincident data is too short for any time slide of "
                              f"{step} s; no FAR is given")
-        cands = cands.sort_values("network_snr", ascending=False,
-                                  kind="stable").reset_index(drop=True)
-        extra.update(slide_step_s=step, requested_slides=cfg.n_slides, n_slides=n_use,
-                     coincident_time_s=zero_plan.live_s)
-        return SearchResult(cfg, bank, conds, trig, cands, background, slides, refused,
-                            analysed, SLIDES_METHOD, probes, extra, valid)
+        extra.update(requested_slides=self.config.n_slides, n_slides=n_use)
+        return cands.sort_values("network_snr", ascending=False,
+                                 kind="stable").reset_index(drop=True)
 
 
     def _at_times(self, conds, bank, probes, at, valid, progress) -> SearchResult:
@@ -835,15 +964,24 @@ class Search:
         extra = {"note": "searched at requested times only: no time slides, no FAR",
                  "at_times_rounds": out["rounds"]}
         return SearchResult(self.config, bank, conds, out["triggers"], out["candidates"],
-                            _empty_background(dets), slides, out["refused"], analysed,
+                            empty_events(dets), slides, out["refused"], analysed,
                             AT_TIMES_METHOD, probes, extra, valid)
 
 
-def _empty_background(dets: list[str]) -> pd.DataFrame:
-    from ringsearch.search.network import _columns
+def slide_table(dets: list[str], plan: list) -> pd.DataFrame:
+    """``slide``, ``shift_<DET>_s`` and ``live_s`` of the zero lag and each slide of a plan.
 
-    return pd.DataFrame({c: pd.Series(dtype=object if c == "anchor_detector" else float)
-                         for c in _columns(dets)})
+    Examples
+    --------
+    >>> from ringsearch.search.network import slide_plan
+    >>> slide_table(["H1", "L1"], slide_plan({"H1": [(0, 40)], "L1": [(0, 40)]}, 1, 10.0))
+       slide  shift_H1_s  shift_L1_s  live_s
+    0      0         0.0         0.0    40.0
+    1      1         0.0        10.0    40.0
+    """
+    return pd.DataFrame({"slide": [s.index for s in plan],
+                         **{f"shift_{d}_s": [float(s.shifts[d]) for s in plan] for d in dets},
+                         "live_s": [float(s.live_s) for s in plan]})
 
 
 # --------------------------------------------------------------------------- summary
@@ -902,8 +1040,8 @@ def _summary(res: SearchResult) -> dict:
         "loudest": {d: loudest(trig[trig.detector == d]) for d in dets},
         "n_triggers": {d: int((trig.detector == d).sum()) for d in dets},
         "significance": sig,
-        "segments": {d: [[float(s[0]), float(s[1])] for s in res.conditioned[d].analysable]
-                     for d in dets},
+        "segments": {d: [[float(s[0]), float(s[1])] for s in segs]
+                     for d, segs in res.analysable().items()},
         "analysed_s": res.analysed_s,
         "bank": bank.summary(),
         "refused_templates": {d: res.refused[res.refused.detector == d]
@@ -920,6 +1058,16 @@ def _summary(res: SearchResult) -> dict:
                    "slides.parquet": "shift per detector and coincident seconds per slide",
                    "refused.parquet": "templates a detector's data could not use"},
     }
+    if "stretches" in res.extra:
+        st = res.extra["stretches"]
+        out["stretches"] = {
+            "n_stretches": int(len(st)), "stretch_s": res.extra["stretch_s"],
+            "conditioned_stretch": res.extra.get("conditioned_stretch"),
+            "margin_windows": [float(x) for x in st["margin_windows"]],
+            "note": ("searched stretch by stretch: each stretch whitened with its own PSD "
+                     "(unless PSDs were given) and slid its own data; triggers and "
+                     "candidates certified equal to the whole series' at every boundary; "
+                     "FARs from the pooled background")}
     rows = []
     for _, r in res.candidates.head(50).iterrows():
         row: dict[str, Any] = {

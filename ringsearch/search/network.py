@@ -219,6 +219,18 @@ def _columns(detectors: Sequence[str]) -> list[str]:
     return cols
 
 
+def empty_events(detectors: Sequence[str]) -> pd.DataFrame:
+    """A table of no network events, with the columns of :func:`network_events`.
+
+    Examples
+    --------
+    >>> len(empty_events(["H1", "L1"])), "L1_trigger_id" in empty_events(["H1", "L1"])
+    (0, True)
+    """
+    return pd.DataFrame({c: pd.Series(dtype=object if c == "anchor_detector" else float)
+                         for c in _columns(detectors)})
+
+
 def _in_segments(t: np.ndarray, segs: Any) -> np.ndarray:
     """True where time t lies in one of the (sorted, coalesced) segments [a, b)."""
     if not len(segs) or not t.size:
