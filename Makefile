@@ -5,7 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 OUT    ?= demo-output
 
-.PHONY: demo test bench lint table clean
+.PHONY: demo test bench calibrate lint table clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -26,6 +26,10 @@ lint: $(STAMP)
 
 bench: $(STAMP)
 	$(BIN)/python scripts/bench_all.py
+
+# Coverage of the overtone analysis' intervals over its prior (writes scripts/calibration-results/).
+calibrate: $(STAMP)
+	$(BIN)/python scripts/calibrate.py
 
 # Regenerate the shipped QNM table from our own Leaver solver (slow; not needed to use the package).
 table: $(STAMP)

@@ -45,7 +45,7 @@ def show_summary(path: Path, keys: list[str]) -> None:
     summary = json.loads(path.read_text())
     for key in keys:
         if key in summary:
-            print(f"  {key}: {json.dumps(summary[key], default=str)[:300]}")
+            print(f"  {key}: {json.dumps(summary[key], default=str)}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -85,9 +85,9 @@ def main(argv: list[str] | None = None) -> int:
     show_summary(out / "search-synthetic" / "summary.json", ["loudest"])
     ringsearch("analyse", *injected, "--from-search", out / "search-synthetic",
                "--out", out / "analysis-synthetic", "--mass", "40:120", "--spin", "0:0.95",
-               "--max-overtones", "2")
+               "--max-overtones", "2", "--truth", "70,0.7")
     show_summary(out / "analysis-synthetic" / "summary.json",
-                 ["supported_overtones", "log10_bayes", "mass", "spin"])
+                 ["supported_overtones", "log10_bayes", "averaged", "truth"])
 
     if OPEN_DATA.exists():
         print("\n== 4. GW150914 open data (GWOSC, CC BY 4.0)")
@@ -97,7 +97,7 @@ def main(argv: list[str] | None = None) -> int:
         ringsearch("analyse", *gw, "--gps", "1126259462.425", "--sky", "1.95,-1.27",
                    "--mass", "40:110", "--out", out / "analysis-gw150914")
         show_summary(out / "analysis-gw150914" / "summary.json",
-                     ["supported_overtones", "log10_bayes", "mass", "spin"])
+                     ["supported_overtones", "log10_bayes", "averaged"])
     else:
         print(f"\n== 4. (skipped: no open data at {OPEN_DATA})")
 

@@ -85,7 +85,9 @@ def test_defaults_and_config_hash():
     ({"spin": [0.2, 1.0]}, "overtones.spin"),
     ({"log10_bayes_threshold": "high"}, "overtones.log10_bayes_threshold"),
     ({"duration_s": 0.0}, "overtones.duration_s"),
-    ({"amplitude_prior_snr": -1.0}, "overtones.amplitude_prior_snr"),
+    ({"snr_prior": [-1.0, 100.0]}, "overtones.snr_prior"),
+    ({"snr_prior": [50.0, 10.0]}, "overtones.snr_prior"),
+    ({"amplitude_prior_snr": 10.0}, "overtones.amplitude_prior_snr"),  # the old key is unknown
     ({"network": "joint"}, "overtones.network"),
 ])
 def test_bad_overtone_settings_name_the_key(table, key):

@@ -29,7 +29,12 @@ import pandas as pd
 
 from ringsearch.analysis.fits import DetectorSeries, start_time_scan
 from ringsearch.analysis.noise_model import ToeplitzNoise, toeplitz_noise
-from ringsearch.analysis.posterior import kerr22_spin_range, kerr_modes, remnant_posterior
+from ringsearch.analysis.posterior import (
+    SNR_PRIOR,
+    kerr22_spin_range,
+    kerr_modes,
+    remnant_posterior,
+)
 from ringsearch.analysis.varpro import fit_free_modes, fit_kerr
 from ringsearch.errors import InputError
 
@@ -273,7 +278,7 @@ def candidate_evidence(strains, t0_gps: float, mass_range: tuple[float, float],
                        psds: Mapping[str, Any] | None = None, grid: tuple[int, int] = (15, 15),
                        duration: float | None = None, f_low: float = 20.0,
                        f_high: float | None = None, threshold: float = 0.5,
-                       amp_sigma: float | None = None, amp_prior_snr: float = 10.0,
+                       snr_prior: tuple[float, float] | None = None,
                        time_shifts: Mapping[str, float] | None = None,
                        cache: dict | None = None,
                        antenna: Mapping[str, tuple[float, float]] | None = None) -> dict:
@@ -283,7 +288,7 @@ def candidate_evidence(strains, t0_gps: float, mass_range: tuple[float, float],
     Toeplitz noise model from ``psds[detector]`` (estimated from the strain if
     absent), and returns :func:`ringsearch.analysis.posterior.overtone_evidence`'s
     dict: ``log10_bayes`` {"N:N-1": float}, ``supported_overtones``,
-    ``mass``/``spin`` {median, lo90, hi90}, ``amp_sigma``, ``warnings``.
+    ``mass``/``spin`` {median, lo90, hi90}, ``averaged``, ``snr_prior``, ``warnings``.
 
     Parameters
     ----------
@@ -292,7 +297,7 @@ def candidate_evidence(strains, t0_gps: float, mass_range: tuple[float, float],
     t0_gps : float
         Ringdown start time (e.g. the injection's start time or the matched
         trigger's ``gps``).
-    mass_range, spin_range, max_overtones, grid, threshold, amp_sigma, amp_prior_snr
+    mass_range, spin_range, max_overtones, grid, threshold, snr_prior
         See :func:`analyse_candidate`; the default grid is coarse (15 x 15).
     cache : dict, optional
         Keep one dict across calls to reuse the noise factorisations.
@@ -303,16 +308,10 @@ def candidate_evidence(strains, t0_gps: float, mass_range: tuple[float, float],
     Notes
     -----
     How often a Bayes factor above ``threshold`` is spurious is measured, not
-    implied by the threshold: for injections with exactly one overtone at
-    network SNR 30-100, ``log10 B(2:1) > 0.5`` in about 1-2% of noise
-    realisations (about 3% when the first overtone is loud); see the Notes of
-    :func:`ringsearch.analysis.posterior.overtone_evidence`.  In a campaign
+    implied by the threshold (``scripts/calibrate.py``; see the Notes of
+    :func:`ringsearch.analysis.posterior.overtone_evidence`).  In a campaign
     report, per-bin fractions from a handful of injections scatter widely
-    (2 of 9 is 22%, with a 90% Wilson interval of 8-50%).  A warning
-    containing "prior widths" marks the one known systematic (the amplitude
-    prior shrinks a fit whose overtones interfere destructively with the
-    fundamental, biasing B(N+1:N) upwards); rerun such a candidate with a
-    wider ``amp_sigma``.
+    (2 of 9 is 22%, with a 90% Wilson interval of 8-50%).
 
     Examples
     --------
@@ -330,7 +329,7 @@ def candidate_evidence(strains, t0_gps: float, mass_range: tuple[float, float],
     data, noises, _ = prepare_detectors(strains, t0_gps, duration, f_low, f_high, time_shifts,
                                         psds=psds, cache=cache)
     return overtone_evidence(data, noises, t0_gps, mass_range, spin_range, max_overtones, grid,
-                             threshold, amp_sigma, amp_prior_snr, antenna=antenna)
+                             threshold, snr_prior or SNR_PRIOR, antenna=antenna)
 
 
 def _default_duration(modes, mass_range, spin_range) -> float:
@@ -346,11 +345,12 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
                       duration: float | None = None, f_low: float = 20.0,
                       f_high: float | None = None, grid: tuple[int, int] = (40, 40),
                       t0_offsets_ms: Sequence[float] = (-2.0, 0.0, 2.0, 4.0, 6.0, 8.0, 10.0),
-                      scan_grid: tuple[int, int] = (20, 20), amp_sigma: float | None = None,
-                      amp_prior_snr: float = 10.0, threshold: float = 0.5,
+                      scan_grid: tuple[int, int] = (20, 20),
+                      snr_prior: tuple[float, float] | None = None, threshold: float = 0.5,
                       time_shifts: Mapping[str, float] | None = None, run_varpro: bool = True,
                       seed: int = 0, modes=None, progress: bool = False,
-                      sky: tuple[float, float] | None = None, *, detector: str | None = None,
+                      sky: tuple[float, float] | None = None,
+                      truth: tuple[float, float] | None = None, *, detector: str | None = None,
                       sample_rate: float | None = None, data_start: float | None = None
                       ) -> dict:
     """Overtone analysis of a candidate ringdown starting at GPS time ``gps``.
@@ -378,13 +378,12 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         mode in the box, clipped to [0.05, 0.5] s).
     grid, scan_grid : (n_mass, n_spin)
         Grid sizes at t0 and for the start-time scan of the evidence.
-    amp_sigma, amp_prior_snr : float
-        Amplitude prior width in strain, or (default) the amplitude at which
-        the fundamental mode at the box centre has optimal SNR
-        ``max(amp_prior_snr, 2 rho_0)`` in each detector, ``rho_0`` the best
-        single-mode SNR on the grid (see
-        :func:`ringsearch.analysis.posterior.remnant_posterior`).  Bayes
-        factors depend on it; the width used is in ``summary["prior"]``.
+    snr_prior : (lo, hi), optional
+        Range of the log-uniform prior on the ringdown's expected optimal
+        network SNR, the scale of the amplitude prior (default
+        :data:`ringsearch.analysis.posterior.SNR_PRIOR`; see
+        :func:`ringsearch.analysis.posterior.remnant_posterior`).  It is fixed
+        before the data are seen and recorded in ``summary["prior"]``.
     threshold : float
         log10 Bayes factor an added overtone must exceed to be "supported".
     sky : (ra, dec), optional
@@ -395,6 +394,9 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         relative to the first detector.
     seed : int
         Seed of the generator for VARPRO starting points.
+    truth : (mass, spin), optional
+        The remnant injected into synthetic data: marked in the posterior plot
+        and compared in ``summary["truth"]`` (whether each interval holds it).
     detector, sample_rate, data_start : optional
         For strain files that do not describe themselves: the detector name
         (overrides what files record; refused for files of several
@@ -453,7 +455,7 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
                         "segment starts at the same GPS time (give time shifts to align them).")
 
     post = remnant_posterior(data, noises, gps, mass_range, spin_range, max_overtones, grid,
-                             amp_sigma, amp_prior_snr, modes, antenna=antenna)
+                             snr_prior or SNR_PRIOR, modes, antenna=antenna)
     warnings.extend(post.warnings)
     nsup = post.supported_overtones(threshold)
     for nn in sorted({0, nsup}):
@@ -469,7 +471,7 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
     for off in it:
         p = post if (off == 0.0 and tuple(scan_grid) == tuple(grid)) else remnant_posterior(
             data, noises, gps + off / 1e3, mass_range, spin_range, max_overtones, scan_grid,
-            post.amp_sigma, amp_prior_snr, modes, antenna=antenna)
+            post.snr_prior, modes, antenna=antenna)
         s0 = p.summary(p.supported_overtones(threshold))
         row = {"t0_gps_s": gps + off / 1e3, "t0_offset_ms": off,
                "supported_overtones": p.supported_overtones(threshold),
@@ -524,12 +526,19 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         "log10_bayes": post.log10_bayes,
         "ln_evidence": [float(v) for v in post.log_evidence],
         "mass": summ["mass"], "spin": summ["spin"],
+        "averaged": post.averaged(),
         "by_overtones": {str(k): post.summary(k) for k in range(max_overtones + 1)},
+        "model_probability": {str(k): float(v)
+                              for k, v in enumerate(post.model_probabilities())},
         "bayes_threshold_log10": threshold,
         "prior": {"mass_range_msun": list(map(float, mass_range)),
                   "spin_range": list(map(float, spin_range)),
-                  "amplitude_sigma_strain": post.amp_sigma,
-                  "amplitude_prior_min_snr": None if amp_sigma is not None else amp_prior_snr,
+                  "amplitudes": ("Zellner g-prior in the whitened metric (the signal "
+                                 "isotropic in each model's signal space), its scale the "
+                                 "expected optimal network SNR, log-uniform on snr_range "
+                                 "and marginalised"),
+                  "snr_range": list(map(float, post.snr_prior)),
+                  "overtone_counts": "equal prior odds for N = 0..max_overtones",
                   "grid": list(map(int, grid))},
         "segment": {"duration_s": float(duration), "samples": n, **{"detectors": meta}},
         "modes": "(2,2,n), n = 0..N, Kerr QNM table",
@@ -539,9 +548,29 @@ def analyse_candidate(strain_input, gps: float, out: str | os.PathLike | None = 
         "antenna": None if antenna is None else {k: list(v) for k, v in antenna.items()},
         "warnings": sorted(set(warnings), key=warnings.index),
     }
+    if truth is not None:
+        summary["truth"] = _truth_check(truth, summary)
     if out is not None:
         _write_outputs(Path(out), summary, post, ev_t0, scan, varpro, vp_starts)
     return summary
+
+
+def _truth_check(truth: tuple[float, float], summary: dict) -> dict:
+    """Whether the averaged and each N's 90% intervals hold an injected (mass, spin)."""
+    try:
+        mass, spin = (float(x) for x in truth)
+    except (TypeError, ValueError):
+        raise InputError(f"truth {truth!r} must be (mass, spin).") from None
+
+    def held(ci: dict, x: float) -> bool:
+        return bool(ci["lo90"] <= x <= ci["hi90"])
+
+    out = {"mass": mass, "spin": spin,
+           "averaged_holds": {"mass": held(summary["averaged"]["mass"], mass),
+                              "spin": held(summary["averaged"]["spin"], spin)},
+           "by_overtones_holds": {k: {"mass": held(v["mass"], mass), "spin": held(v["spin"], spin)}
+                                  for k, v in summary["by_overtones"].items()}}
+    return out
 
 
 def _shrink(noise: ToeplitzNoise, n: int) -> ToeplitzNoise:
@@ -594,8 +623,10 @@ def _write_outputs(out: Path, summary: dict, post, ev_t0: pd.DataFrame, scan: pd
         if vp_starts:
             pd.concat(vp_starts, ignore_index=True).to_csv(stage / "varpro_starts.csv",
                                                           index=False)
+        truth = summary.get("truth")
         plots.plot_posterior(post, stage / "posterior.png",
-                             truth=None, supported=summary["supported_overtones"])
+                             truth=None if truth is None else (truth["mass"], truth["spin"]),
+                             supported=summary["supported_overtones"])
         plots.plot_bayes_factors(post, ev_t0, stage / "bayes_factors.png",
                                  threshold=summary["bayes_threshold_log10"])
         plots.plot_start_time_scan(scan, stage / "start_time_scan.png")

@@ -36,7 +36,7 @@ def plot_posterior(post: RemnantPosterior, path: str | os.PathLike,
                    colors=[colour(k)], linestyles=ls, linewidths=[1.0, 2.0])
         ax.plot([], [], color=colour(k), ls=ls, label=f"N = {k}")
     if truth is not None:
-        ax.plot(*truth, marker="*", ms=12, color="black", ls="none", label="reference")
+        ax.plot(*truth, marker="*", ms=12, color="black", ls="none", label="injected")
     ax.set_xlabel("detector-frame mass [M$_\\odot$]")
     ax.set_ylabel("spin [dimensionless]")
     ax.set_title("remnant posterior: 50% (thick) and 90% (thin) credible regions")

@@ -4,29 +4,46 @@ For K = N+1 Kerr modes (l = m = 2, n = 0..N) at a grid point (mass, spin) the
 data of one detector are ``y = A a + noise`` in whitened units (unit-variance
 white noise), with ``A`` the whitened design matrix of
 :func:`ringsearch.analysis.fits.damped_basis` and ``a`` the 2K real
-amplitudes.  Under the Gaussian amplitude prior ``a ~ N(0, σ_a² I)`` the
+amplitudes.
+
+**The amplitude prior** is fixed before the data are seen and does not
+favour parts of the (mass, spin) box by template norm: it is Zellner's
+g-prior (Zellner 1986, in *Bayesian Inference and Decision Techniques*,
+eds. Goel & Zellner, pp. 233-243), ``a ~ N(0, g (AᵀA)⁻¹)``, i.e. the whitened
+signal ``A a`` is isotropic in the model's k-dimensional signal space with
+variance g per direction.  Its scale is the expected optimal network SNR
+``ρ̄ = sqrt(g k)`` (the same for every N: an extra overtone does not promise a
+louder signal, it shares the same loudness among more directions), and ρ̄ is
+marginalised with a log-uniform hyperprior on :data:`SNR_PRIOR`, a mixture of
+g-priors in the manner of Liang et al. (2008), JASA 103, 410.  Per scale the
 amplitudes integrate out in closed form:
 
-``ln p(y) = -n/2 ln 2π - ½ yᵀy + ½ bᵀM⁻¹b - ½ ln det M - 2K ln σ_a``,
+``ln p(y | g) = -n/2 ln 2π - ½ yᵀy + ½ g/(1+g) ρ² - (k/2) ln(1+g)``,
 
-with ``M = AᵀA + I/σ_a²`` and ``b = Aᵀy`` (Woodbury identity and the matrix
-determinant lemma; only 2K×2K matrices are factored).  The whitening Jacobian
-``-½ ln det C`` is common to every model and is dropped.
+with ``ρ² = bᵀ(AᵀA)⁻¹b``, ``b = Aᵀy`` the least-squares (projection) SNR²,
+because ``y ~ N(0, I + g P)`` with P the projection onto the columns of A.
+The scale is then integrated on a 1-D grid in ln ρ̄ (:func:`log_scale_marginal`).
+No template norm enters, only the fit's SNR and the number of amplitudes, so
+the (mass, spin) posterior at fixed N is ``∝ ∫ p(ρ̄) (1+g)^(-k/2)
+exp(½ g/(1+g) ρ²(M, χ)) dρ̄``.
 
 A network is analysed in one of two ways.  By default, with common (mass,
 spin) but independent amplitudes in each detector (each detector's segment
-starts at t0 plus its arrival delay), so the log-likelihoods add; this needs
-no sky position and is conservative: it ignores the amplitude and phase
-relations between detectors.  Given antenna patterns for a sky position, the
-network is coherent: common h+ and hx amplitudes per mode, seen through each
-detector's (F+, Fx) — the Gram matrices and projections of the detectors add
-in 4K x 4K blocks.
+starts at t0 plus its arrival delay): the detectors' projections add, and the
+prior's k counts every detector's amplitudes; this needs no sky position and
+is conservative: it ignores the amplitude and phase relations between
+detectors.  Given antenna patterns for a sky position, the network is
+coherent: common h+ and hx amplitudes per mode, seen through each detector's
+(F+, Fx) — the Gram matrices and projections of the detectors add in
+4K x 4K blocks, and the g-prior is taken in that network metric.
 
 The prior is uniform in the (mass, spin) box, so the evidence of N overtones
 is the grid average of the marginal likelihood; ``log10_bayes["N:N-1"]`` is
-the log10 ratio of consecutive evidences.  The Bayes factors depend on the
-amplitude prior width ``σ_a`` (in strain): the Occam penalty of an extra mode
-grows like ``2 ln(σ_a / σ_fit)``; its value is always reported.
+the log10 ratio of consecutive evidences, and with equal prior odds the
+evidences weigh the N in the model-averaged remnant
+(:meth:`RemnantPosterior.averaged`).  The coverage of the intervals over this
+prior is measured by ``scripts/calibrate.py`` (``make calibrate``) and by
+``tests/test_analysis_coverage.py``.
 """
 
 from __future__ import annotations
@@ -42,13 +59,29 @@ from ringsearch.analysis.fits import DetectorSeries, damped_basis
 from ringsearch.analysis.noise_model import ToeplitzNoise
 from ringsearch.errors import InputError
 
-__all__ = ["marginal_log_likelihood", "default_amp_sigma", "RemnantPosterior",
-           "remnant_posterior", "overtone_evidence", "credible_interval", "hpd_levels"]
+__all__ = ["marginal_log_likelihood", "log_scale_marginal", "projection_snr2",
+           "RemnantPosterior", "remnant_posterior", "overtone_evidence", "credible_interval",
+           "hpd_levels", "SNR_PRIOR"]
 
 #: Signature of a QNM provider: (mass, spin, n) -> (f_hz, tau_s), vectorised.
 ModeFunc = Callable[[np.ndarray, np.ndarray, int], tuple[np.ndarray, np.ndarray]]
 
 LN10 = math.log(10.0)
+
+#: Default range of the prior's scale, the expected optimal network SNR of the
+#: ringdown (log-uniform).  Wide enough for any ringdown a search finds (from
+#: below its threshold to the loudest signals expected of current detectors);
+#: the posteriors barely depend on it, the Bayes factors only through the
+#: logarithm of its width where the data's SNR lies inside it.
+SNR_PRIOR: tuple[float, float] = (4.0, 200.0)
+
+#: Points of the grid in ln(scale) on which the scale is marginalised
+#: (trapezoid rule; the integrand is smooth on a scale of order 1 in ln g).
+SCALE_POINTS: int = 64
+
+#: Relative eigenvalue below which a direction of the Gram matrix counts as absent
+#: (e.g. the hx amplitudes of a detector that only sees h+).
+RANK_TOL: float = 1e-10
 
 
 def kerr_modes() -> ModeFunc:
@@ -81,81 +114,141 @@ def _check_spin_box(spin_range: tuple[float, float], use_table: bool) -> None:
                          f"[{tlo}, {thi}] (or empty).")
 
 
-def marginal_log_likelihood(yw: np.ndarray, aw: np.ndarray, amp_sigma: float) -> float:
-    """Log-density of whitened data with the linear amplitudes integrated out.
+def _check_snr_prior(snr_prior: tuple[float, float]) -> tuple[float, float]:
+    try:
+        lo, hi = (float(x) for x in snr_prior)
+    except (TypeError, ValueError):
+        raise InputError(f"the SNR prior {snr_prior!r} must be two numbers lo:hi.") from None
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+        raise InputError(f"the SNR prior {lo}:{hi} must be two positive, increasing numbers.")
+    return lo, hi
+
+
+def projection_snr2(gram: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Least-squares SNR² ``bᵀG⁻¹b`` and the rank of G, batched over leading axes.
+
+    Directions of G with eigenvalues below :data:`RANK_TOL` times the largest
+    are dropped (the data cannot see them, and the prior spreads nothing
+    there), so the result stays finite for singular G.
+
+    Examples
+    --------
+    >>> g = np.array([[[2.0, 0.0], [0.0, 0.0]]]); b = np.array([[2.0, 0.0]])
+    >>> projection_snr2(g, b)
+    (array([2.]), array([1]))
+    """
+    lam, vec = np.linalg.eigh(np.asarray(gram, float))
+    keep = lam > RANK_TOL * np.max(lam, axis=-1, keepdims=True)
+    proj = np.einsum("...ij,...i->...j", vec, np.asarray(b, float))
+    rho2 = np.sum(np.where(keep, proj**2 / np.where(keep, lam, 1.0), 0.0), axis=-1)
+    return rho2, keep.sum(axis=-1)
+
+
+def log_scale_marginal(rho2: np.ndarray, k: np.ndarray | int,
+                       snr_prior: tuple[float, float] = SNR_PRIOR,
+                       n_points: int = SCALE_POINTS) -> np.ndarray:
+    """``ln ∫ p(ρ̄) (1+g)^(-k/2) exp(½ g/(1+g) ρ²) dρ̄`` with ``g = ρ̄²/k``.
+
+    The likelihood ratio of the g-prior mixture against noise alone, for a fit
+    of least-squares SNR² ``rho2`` with ``k`` amplitudes; ρ̄ (the expected
+    optimal SNR) is log-uniform on ``snr_prior``, integrated by the trapezoid
+    rule on ``n_points`` in ln ρ̄.
+
+    Examples
+    --------
+    >>> float(log_scale_marginal(np.array(0.0), 2, (10.0, 10.0 + 1e-9), 2))  # (1+g)^-1
+    ... # doctest: +ELLIPSIS
+    -3.93...
+    """
+    lo, hi = _check_snr_prior(snr_prior)
+    rho2 = np.asarray(rho2, float)
+    k = np.maximum(np.asarray(k, float), 1.0)
+    u = np.linspace(math.log(lo), math.log(hi), int(n_points))
+    w = np.full(u.size, 1.0 / max(u.size - 1, 1))  # trapezoid weights of a unit-mass density
+    w[[0, -1]] *= 0.5
+    g = np.exp(2 * u)[(...,) + (None,) * rho2.ndim] / k       # (n_points, *shape)
+    terms = -0.5 * k * np.log1p(g) + 0.5 * (g / (1 + g)) * rho2
+    return logsumexp(terms, axis=0, b=w[(...,) + (None,) * rho2.ndim])
+
+
+def marginal_log_likelihood(yw: np.ndarray, aw: np.ndarray,
+                            snr_prior: tuple[float, float] = SNR_PRIOR) -> float:
+    """Log-density of whitened data with the amplitudes and their scale integrated out.
 
     Parameters
     ----------
     yw : array, shape (n,)
         Whitened data (unit-variance white noise under the noise model).
-    aw : array, shape (n, 2K)
-        Whitened design matrix (columns in strain per unit amplitude).
-    amp_sigma : float
-        Standard deviation of the Gaussian prior on each real amplitude (strain).
+    aw : array, shape (n, k)
+        Whitened design matrix.
+    snr_prior : (lo, hi)
+        Range of the log-uniform prior on the expected optimal SNR (see the
+        module's notes).
 
     Returns
     -------
     float
-        ``ln ∫ N(yw; aw a, I) N(a; 0, σ² I) da`` (exact, closed form).
+        ``ln ∫∫ N(yw; aw a, I) N(a; 0, g (awᵀaw)⁻¹) p(ρ̄) da dρ̄``, ``g = ρ̄²/k``.
 
     Examples
     --------
     >>> import numpy as np
-    >>> y = np.array([0.3, -0.1]); a = np.array([[1.0], [0.5]])
-    >>> cov = np.eye(2) + 4.0 * a @ a.T   # y ~ N(0, I + sigma^2 A A^T), sigma = 2
-    >>> quad, logdet = y @ np.linalg.solve(cov, y), np.linalg.slogdet(cov)[1]
-    >>> direct = -0.5 * (quad + logdet + 2 * np.log(2 * np.pi))
-    >>> bool(np.isclose(marginal_log_likelihood(y, a, 2.0), direct))
+    >>> y = np.array([0.3, -0.1, 0.2]); a = np.array([[1.0], [0.5], [0.0]])
+    >>> noise_only = -0.5 * (y @ y + 3 * np.log(2 * np.pi))
+    >>> bool(marginal_log_likelihood(y, a) < noise_only)   # no signal: the Occam factor
     True
     """
     yw = np.asarray(yw, float)
     aw = np.asarray(aw, float)
-    if amp_sigma <= 0 or not math.isfinite(amp_sigma):
-        raise InputError(f"the amplitude prior width {amp_sigma} must be positive and finite.")
-    k2 = aw.shape[1]
-    m = aw.T @ aw + np.eye(k2) / amp_sigma**2
-    b = aw.T @ yw
-    c = np.linalg.cholesky(m)
-    z = np.linalg.solve(c, b)
-    return float(-0.5 * len(yw) * math.log(2 * math.pi) - 0.5 * yw @ yw + 0.5 * z @ z
-                 - np.sum(np.log(np.diag(c))) - k2 * math.log(amp_sigma))
+    rho2, rank = projection_snr2(aw.T @ aw, aw.T @ yw)
+    base = -0.5 * len(yw) * math.log(2 * math.pi) - 0.5 * float(yw @ yw)
+    return float(base + log_scale_marginal(rho2, rank, snr_prior))
 
 
-def default_amp_sigma(series: DetectorSeries, noise: ToeplitzNoise, f_hz: float, tau_s: float,
-                      snr: float = 10.0) -> float:
-    """Amplitude prior width: the strain amplitude giving optimal SNR ``snr`` for one mode.
+#: A posterior whose 90% region covers more than this fraction of the box is
+#: reported as dominated by its prior.
+PRIOR_DOMINATED_AREA: float = 0.5
 
-    A single damped sinusoid of this amplitude at the start of the segment
-    would have optimal SNR ``snr`` (averaged over phase) in ``series``'s noise.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> from ringsearch.analysis.noise_model import toeplitz_noise
-    >>> fr = np.linspace(0, 2048, 2049)
-    >>> tn = toeplitz_noise(fr, np.full_like(fr, 1e-46), 4096.0, 400, f_low=0.0, f_high=2048.0)
-    >>> s = DetectorSeries("H1", np.zeros(4096), 0.0, 4096.0)
-    >>> 1e-22 < default_amp_sigma(s, tn, 250.0, 0.004) < 1e-20
-    True
-    """
-    t = np.arange(noise.n) / noise.sample_rate
-    aw = noise.whiten(damped_basis(t, [f_hz], [tau_s]))
-    unit = math.sqrt(0.5 * float(np.sum(aw**2)))
-    return snr / unit
+#: Posterior mass on the box's edge cells above which it is reported as railed.
+RAILED_EDGE_MASS: float = 0.05
 
 
 @dataclass
 class RemnantPosterior:
-    """Grid posterior over (mass, spin) for each overtone count, and the evidences."""
+    """Grid posterior over (mass, spin) for each overtone count, and the evidences.
 
-    masses: list[np.ndarray]           # per N: grid of detector-frame solar masses
-    spins: list[np.ndarray]            # per N: grid of spins
-    log_likelihood: list[np.ndarray]   # per N: (n_mass, n_spin), amplitudes marginalised
-    amp_sigma: dict[str, float]        # prior width per detector (strain)
+    Attributes
+    ----------
+    masses, spins : list of arrays
+        Per N, the grid (detector-frame solar masses; spin), possibly zoomed
+        onto the posterior's bulk.
+    log_likelihood : list of arrays
+        Per N, the marginal log-likelihood on the grid (amplitudes and their
+        scale integrated out), shape (n_mass, n_spin).
+    snr_prior : (lo, hi)
+        Range of the log-uniform prior on the expected optimal network SNR.
+    t0_gps : float
+        Start time analysed (reference detector).
+    detectors : list of str
+    warnings : list of str
+    log_box_fraction : list of float
+        Per N, ln(grid area / box area) (the zoom keeps the whole box's prior).
+    box : ((mass_lo, mass_hi), (spin_lo, spin_hi))
+        The prior box.
+    best_snr : list of float
+        Per N, the largest least-squares network SNR on the grid.
+    """
+
+    masses: list[np.ndarray]
+    spins: list[np.ndarray]
+    log_likelihood: list[np.ndarray]
+    snr_prior: tuple[float, float]
     t0_gps: float
     detectors: list[str]
     warnings: list[str] = field(default_factory=list)
-    log_box_fraction: list[float] = field(default_factory=list)  # per N: ln(grid/prior area)
+    log_box_fraction: list[float] = field(default_factory=list)
+    box: tuple = ((0.0, 1.0), (0.0, 1.0))
+    best_snr: list[float] = field(default_factory=list)
 
     @property
     def max_overtones(self) -> int:
@@ -174,10 +267,18 @@ class RemnantPosterior:
         z = self.log_evidence
         return {f"{n}:{n - 1}": float((z[n] - z[n - 1]) / LN10) for n in range(1, len(z))}
 
+    def model_probabilities(self) -> np.ndarray:
+        """Posterior probability of each N with equal prior odds (evidences normalised)."""
+        z = self.log_evidence
+        p = np.exp(z - z.max())
+        return p / p.sum()
+
     def supported_overtones(self, threshold: float = 0.5) -> int:
         """Largest N reached by adding overtones while ``log10 B(N:N-1) > threshold``.
 
-        The default 0.5 is Jeffreys' "substantial" evidence (# common practice).
+        The default 0.5 is Jeffreys' "substantial" evidence (# common practice);
+        its false-claim and missed-overtone rates are measured by
+        ``scripts/calibrate.py``.
         """
         z = self.log_evidence
         n = 0
@@ -197,6 +298,30 @@ class RemnantPosterior:
         return {"mass": credible_interval(self.masses[n_overtones], p.sum(axis=1)),
                 "spin": credible_interval(self.spins[n_overtones], p.sum(axis=0))}
 
+    def marginal(self, n_overtones: int, axis: str, x: np.ndarray) -> np.ndarray:
+        """The marginal density of ``axis`` ("mass" or "spin") for N at the points ``x``
+        (per unit of x; zero outside N's grid)."""
+        p = self.posterior(n_overtones)
+        grid, w = ((self.masses[n_overtones], p.sum(axis=1)) if axis == "mass"
+                   else (self.spins[n_overtones], p.sum(axis=0)))
+        step = float(grid[1] - grid[0]) if len(grid) > 1 else 1.0
+        dens = np.interp(x, grid, w / step, left=0.0, right=0.0)
+        return dens
+
+    def averaged(self, prob: float = 0.9, points: int = 4001) -> dict:
+        """The remnant averaged over N with the evidences as weights (equal prior odds).
+
+        Returns ``mass`` and ``spin`` (median and equal-tailed ``prob`` interval
+        of the mixture of the N posteriors) and ``weights`` (per N).
+        """
+        w = self.model_probabilities()
+        out: dict = {"weights": {str(n): float(v) for n, v in enumerate(w)}}
+        for axis, (lo, hi) in zip(("mass", "spin"), self.box, strict=True):
+            x = np.linspace(lo, hi, points)
+            mix = sum(wn * self.marginal(n, axis, x) for n, wn in enumerate(w))
+            out[axis] = credible_interval(x, mix, prob)
+        return out
+
     def contains(self, mass: float, spin: float, n_overtones: int, prob: float = 0.9) -> bool:
         """Whether (mass, spin) lies inside the highest-posterior-density region ``prob``.
 
@@ -213,17 +338,32 @@ class RemnantPosterior:
         interp = RegularGridInterpolator((ms, sp), p)
         return bool(interp([[mass, spin]])[0] >= level)
 
+    def region_fraction(self, n_overtones: int, prob: float = 0.9) -> float:
+        """Fraction of the prior box covered by N's highest-density region ``prob``."""
+        p = self.posterior(n_overtones)
+        level = hpd_levels(p, [prob])[0]
+        frac = self.log_box_fraction[n_overtones] if self.log_box_fraction else 0.0
+        return float(np.mean(p >= level) * math.exp(frac))
+
     def resolution_warnings(self, n_overtones: int) -> list[str]:
-        """Warnings when the grid does not resolve the posterior or truncates it."""
+        """Warnings when the grid does not resolve the posterior, the box truncates it
+        (railed) or the prior dominates it."""
         p = self.posterior(n_overtones)
         out = []
         if p.max() > 0.1:
             out.append(f"N={n_overtones}: one grid cell holds {100 * p.max():.0f}% of the "
                        "posterior; the grid does not resolve it (narrow the box or refine).")
         edge = p[0].sum() + p[-1].sum() + p[:, 0].sum() + p[:, -1].sum()
-        if edge > 0.05 and self.log_box_fraction and self.log_box_fraction[n_overtones] == 0:
+        if edge > RAILED_EDGE_MASS and (not self.log_box_fraction
+                                        or self.log_box_fraction[n_overtones] == 0):
             out.append(f"N={n_overtones}: {100 * edge:.0f}% of the posterior lies on the edge "
-                       "of the (mass, spin) box; the prior box truncates it.")
+                       "of the (mass, spin) box (railed): the box truncates it, so the "
+                       "intervals are bounded by the box, not by the data.")
+        area = self.region_fraction(n_overtones)
+        if area > PRIOR_DOMINATED_AREA:
+            out.append(f"N={n_overtones}: the 90% region covers {100 * area:.0f}% of the "
+                       "(mass, spin) box, so the posterior is dominated by the prior: the "
+                       "intervals say more about the box than about the data.")
         return out
 
 
@@ -289,9 +429,10 @@ def _grid_modes(modes: ModeFunc, mm: np.ndarray, ss: np.ndarray, nmax: int):
 def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzNoise],
                       t0_gps: float, mass_range: tuple[float, float],
                       spin_range: tuple[float, float], max_overtones: int = 2,
-                      grid: tuple[int, int] = (40, 40), amp_sigma: float | dict | None = None,
-                      amp_prior_snr: float = 10.0, modes: ModeFunc | None = None,
-                      chunk: int = 4096, refine: int = 2, upsample: int = 6,
+                      grid: tuple[int, int] = (40, 40),
+                      snr_prior: tuple[float, float] = SNR_PRIOR,
+                      modes: ModeFunc | None = None, chunk: int = 4096, refine: int = 2,
+                      upsample: int = 6,
                       antenna: Mapping[str, tuple[float, float]] | None = None
                       ) -> RemnantPosterior:
     """Amplitude-marginalised likelihood on a (mass, spin) grid for N = 0..N_max.
@@ -310,18 +451,11 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         Largest overtone count N analysed (modes (2,2,0..N)).
     grid : (n_mass, n_spin)
         Grid size.
-    amp_sigma : float or {detector: float}, optional
-        Gaussian prior width of every real amplitude, in strain.  Default: per
-        detector, the amplitude at which the fundamental mode at the box centre
-        has optimal SNR ``max(amp_prior_snr, 2 rho_0)`` (see
-        :func:`default_amp_sigma`), where ``rho_0`` is the largest
-        least-squares SNR of the fundamental mode alone on the grid.  Scaling
-        with the data keeps a loud signal from being shrunk by the prior (which
-        would bias (mass, spin) and let extra modes win by relieving the
-        shrinkage); the width used is reported in ``amp_sigma``.  When the
-        fit of some N still reaches more than :data:`SHRINKAGE_LIMIT` prior
-        widths (overtones interfering destructively with the fundamental), a
-        warning says that B(N+1:N) is biased upwards.
+    snr_prior : (lo, hi)
+        Range of the log-uniform prior on the expected optimal network SNR,
+        the scale of the g-prior on the amplitudes (see the module's notes);
+        it is fixed before the data are seen.  A warning says when the data's
+        SNR lies outside it.
     modes : callable, optional
         QNM provider ``(mass, spin, n) -> (f_hz, tau_s)``; default the shipped
         Kerr table (:func:`kerr_modes`).
@@ -339,8 +473,7 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         is coherent: common h+ and hx amplitudes per mode, seen by each
         detector through its response (each detector's segment still starts
         at ``t0_gps + time_shift``).  Without it every detector has its own
-        amplitudes.  The prior width then applies to the h+/hx amplitudes
-        (key ``"plus_cross"`` of ``amp_sigma`` in the result).
+        amplitudes.
     upsample : int
         The log-likelihood of each N is then interpolated (bicubic spline) onto
         a grid this many times finer, on which the evidence, credible regions
@@ -370,13 +503,13 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
     if not (0 < mlo < mhi):
         raise InputError(f"the mass range {mlo}:{mhi} must be positive and increasing.")
     _check_spin_box(spin_range, use_table=modes is None)
+    snr_prior = _check_snr_prior(snr_prior)
     if max_overtones < 0:
         raise InputError(f"max_overtones={max_overtones} must be >= 0.")
     modes = modes or kerr_modes()
     masses = np.linspace(mlo, mhi, int(grid[0]))
     spins = np.linspace(spin_range[0], spin_range[1], int(grid[1]))
     warnings: list[str] = []
-    sigmas: dict[str, float] = {}
     segments = []
     mm, ss = np.meshgrid(masses, spins, indexing="ij")
     f, tau = _grid_modes(modes, mm.ravel(), ss.ravel(), max_overtones)
@@ -385,24 +518,8 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         _check_segment_modes(series, noise, f, tau, warnings)
         y, t = series.segment(t0_gps, noise.n)
         yw = noise.whiten(y)
-        stats = _grid_stats(yw, t, noise, f, tau, chunk)
-        first.append(stats)
-        if isinstance(amp_sigma, dict) and series.name in amp_sigma:
-            sig = float(amp_sigma[series.name])
-        elif amp_sigma is not None and not isinstance(amp_sigma, dict):
-            sig = float(amp_sigma)
-        else:
-            fc, tc = modes(np.array([0.5 * (mlo + mhi)]), np.array([np.mean(spin_range)]), 0)
-            unit = default_amp_sigma(series, noise, float(np.ravel(fc)[0]),
-                                     float(np.ravel(tc)[0]), 1.0)
-            gram, bvec = stats[0][:, :2, :2], stats[1][:, :2]
-            rho0 = math.sqrt(max(0.0, float(np.max(np.einsum(
-                "gi,gi->g", bvec, np.linalg.solve(gram, bvec[..., None])[..., 0])))))
-            sig = unit * max(amp_prior_snr, 2.0 * rho0)
-        if not (sig > 0 and math.isfinite(sig)):
-            raise InputError(f"the amplitude prior width {sig} must be positive and finite.")
-        sigmas[series.name] = sig
-        segments.append((yw, t, noise, sig))
+        first.append(_grid_stats(yw, t, noise, f, tau, chunk))
+        segments.append((yw, t, noise))
     fpc = None
     if antenna is not None:
         missing = [d.name for d in data if d.name not in antenna]
@@ -411,32 +528,26 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         fpc = [tuple(map(float, antenna[d.name])) for d in data]
         if any(math.hypot(*fc) == 0 for fc in fpc):
             raise InputError("a detector has zero antenna response at this sky position.")
-        # one prior width for the h+ and hx amplitudes: the widest per-detector width
-        # referred to the polarisations through the detector's response |F|
-        pol = max(sig / math.hypot(*fc)
-                  for (_, _, _, sig), fc in zip(segments, fpc, strict=True))
-        if isinstance(amp_sigma, dict) and "plus_cross" in amp_sigma:
-            pol = float(amp_sigma["plus_cross"])
-        elif amp_sigma is not None and not isinstance(amp_sigma, dict):
-            pol = float(amp_sigma)
-        sigmas = {"plus_cross": pol}
+    kmax = max_overtones + 1
+    best = np.zeros(kmax)
 
     def evaluate(ms: np.ndarray, sp: np.ndarray, nmax: int, stats_list=None) -> np.ndarray:
         if stats_list is None:
             mm, ss = np.meshgrid(ms, sp, indexing="ij")
             f, tau = _grid_modes(modes, mm.ravel(), ss.ravel(), nmax)
-            stats_list = [_grid_stats(yw, t, noise, f, tau, chunk)
-                          for yw, t, noise, _ in segments]
-        if fpc is not None:
-            ll = _ll_coherent(stats_list, fpc, sigmas["plus_cross"], nmax + 1)
-        else:
-            ll = 0.0
-            for (_, _, _, sig), st in zip(segments, stats_list, strict=True):
-                ll = ll + _ll_from_stats(*st, sig, nmax + 1)
+            stats_list = [_grid_stats(yw, t, noise, f, tau, chunk) for yw, t, noise in segments]
+        rho2, rank = _network_snr2(stats_list, fpc, nmax + 1)
+        np.maximum(best[:nmax + 1], np.sqrt(rho2.max(axis=1)), out=best[:nmax + 1])
+        base = sum(st[2] for st in stats_list)
+        ll = base + log_scale_marginal(rho2, rank, snr_prior)
         return ll.reshape(nmax + 1, len(ms), len(sp))
 
     full = evaluate(masses, spins, max_overtones, first)
-    warnings.extend(_shrinkage_warnings(full, first, [s.name for s in data], sigmas, fpc))
+    top = float(best.max())
+    if top > snr_prior[1]:
+        warnings.append(f"the data's least-squares SNR ({top:.0f}) exceeds the SNR prior's "
+                        f"upper end ({snr_prior[1]:g}); the Bayes factors then penalise "
+                        "overtones less than a prior covering it would.")
     box = (mhi - mlo) * (spin_range[1] - spin_range[0])
     out_m, out_s, out_ll, out_frac = [], [], [], []
     for k in range(max_overtones + 1):
@@ -462,59 +573,12 @@ def remnant_posterior(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         out_ll.append(ll)
         out_frac.append(frac)
     return RemnantPosterior(masses=out_m, spins=out_s, log_likelihood=out_ll,
-                            amp_sigma=sigmas, t0_gps=float(t0_gps),
+                            snr_prior=snr_prior, t0_gps=float(t0_gps),
                             detectors=[s.name for s in data], warnings=warnings,
-                            log_box_fraction=out_frac)
-
-
-#: Posterior-mode amplitudes beyond this many prior widths mean the prior shrinks the model.
-SHRINKAGE_LIMIT = 2.0
-
-
-def _shrinkage_warnings(full: np.ndarray, stats_list, names: Sequence[str],
-                        sigmas: Mapping[str, float], fpc) -> list[str]:
-    """Warn when the amplitude prior is too narrow for the N-overtone model's best fit.
-
-    At the grid point of largest marginal likelihood of each N < N_max, the
-    posterior-mode amplitudes of every detector (for a coherent network, the
-    common h+/hx amplitudes) are compared with the prior width.  If one
-    exceeds :data:`SHRINKAGE_LIMIT` widths, the prior pulls that model's fit
-    (and its (mass, spin)) away from the data, and a model with one more
-    nearly degenerate overtone can win by relieving the pull: the Bayes
-    factor B(N+1:N) is then biased upwards.  This happens when overtones
-    much louder than the fundamental interfere destructively with it, so
-    that the fundamental-only SNR that sets the default width is small.
-    """
-    out = []
-    for nov in range(full.shape[0] - 1):
-        g = int(np.argmax(full[nov].ravel()))
-        kk = 2 * (nov + 1)
-        if fpc is not None:
-            # network Gram matrix and projection of the common h+/hx amplitudes
-            m = np.zeros((2 * kk, 2 * kk))
-            b = np.zeros(2 * kk)
-            for (gram, bvec, _), (fp, fc) in zip(stats_list, fpc, strict=True):
-                gk, bk = gram[g, :kk, :kk], bvec[g, :kk]
-                m += np.block([[fp * fp * gk, fp * fc * gk], [fp * fc * gk, fc * fc * gk]])
-                b += np.concatenate([fp * bk, fc * bk])
-            fits = [("the network", m, b, sigmas["plus_cross"])]
-        else:
-            fits = [(name, gram[g, :kk, :kk], bvec[g, :kk], sigmas[name])
-                    for name, (gram, bvec, _) in zip(names, stats_list, strict=True)]
-        worst, where = 0.0, ""
-        for name, m, b, sig in fits:
-            # posterior-mode amplitudes: directions the data do not constrain stay near
-            # zero, so only amplitudes the data demand can reach several prior widths
-            amap = np.linalg.solve(m + np.eye(len(b)) / sig**2, b)
-            ratio = float(np.max(np.abs(amap))) / sig
-            if ratio > worst:
-                worst, where = ratio, name
-        if worst > SHRINKAGE_LIMIT:
-            out.append(f"N={nov}: the fitted amplitudes at the likelihood peak reach "
-                       f"{worst:.1f} prior widths in {where}, so the amplitude prior shrinks "
-                       f"this fit and B({nov + 1}:{nov}) is biased towards more overtones; "
-                       "rerun with a wider amplitude prior (amp_sigma) to check.")
-    return out
+                            log_box_fraction=out_frac,
+                            box=((float(mlo), float(mhi)),
+                                 (float(spin_range[0]), float(spin_range[1]))),
+                            best_snr=[float(x) for x in best])
 
 
 def _upsample(ms: np.ndarray, sp: np.ndarray, ll: np.ndarray, factor: int):
@@ -556,33 +620,26 @@ def _grid_stats(yw: np.ndarray, t: np.ndarray, noise: ToeplitzNoise, f: np.ndarr
     return gram, bvec, base
 
 
-def _ll_from_stats(gram: np.ndarray, bvec: np.ndarray, base: float, sig: float,
-                   kmax: int) -> np.ndarray:
-    """Marginal log-likelihood for N = 0..kmax-1 at every grid point: (kmax, G)."""
-    ll = np.empty((kmax, gram.shape[0]))
-    for nov in range(kmax):
-        kk = 2 * (nov + 1)
-        m = gram[:, :kk, :kk] + np.eye(kk) / sig**2
-        c = np.linalg.cholesky(m)
-        z = np.linalg.solve(c, bvec[:, :kk, None])[..., 0]
-        ll[nov] = (base + 0.5 * np.sum(z**2, axis=1)
-                   - np.sum(np.log(np.diagonal(c, axis1=1, axis2=2)), axis=1)
-                   - kk * math.log(sig))
-    return ll
+def _network_snr2(stats_list, fpc, kmax: int) -> tuple[np.ndarray, np.ndarray]:
+    """Network least-squares SNR² and number of amplitudes for N = 0..kmax-1: (kmax, G) each.
 
-
-def _ll_coherent(stats_list, fpc, sig: float, kmax: int) -> np.ndarray:
-    """Coherent network: shared h+ and hx amplitudes seen through each detector's (F+, Fx).
-
-    Detector d's whitened design is ``[F+_d A_d, Fx_d A_d]``, so the network
-    Gram matrix and projection are sums of per-detector blocks; the amplitude
-    vector is (h+ amplitudes, hx amplitudes), 2 x 2K reals with prior N(0, σ²).
+    Independent amplitudes (``fpc`` None): the detectors' SNR² and amplitude
+    counts add.  Coherent: shared h+ and hx amplitudes seen through each
+    detector's (F+, Fx), so detector d's whitened design is ``[F+_d A_d,
+    Fx_d A_d]`` and the network Gram matrix and projection are sums of
+    per-detector blocks (amplitude vector: h+ amplitudes, then hx).
     """
     g = stats_list[0][0].shape[0]
-    ll = np.empty((kmax, g))
-    base = sum(st[2] for st in stats_list)
+    rho2 = np.zeros((kmax, g))
+    rank = np.zeros((kmax, g), dtype=np.int64)
     for nov in range(kmax):
         kk = 2 * (nov + 1)
+        if fpc is None:
+            for gram, bvec, _ in stats_list:
+                r2, rk = projection_snr2(gram[:, :kk, :kk], bvec[:, :kk])
+                rho2[nov] += r2
+                rank[nov] += rk
+            continue
         m = np.zeros((g, 2 * kk, 2 * kk))
         b = np.zeros((g, 2 * kk))
         for (gram, bvec, _), (fp, fc) in zip(stats_list, fpc, strict=True):
@@ -593,13 +650,8 @@ def _ll_coherent(stats_list, fpc, sig: float, kmax: int) -> np.ndarray:
             m[:, kk:, kk:] += fc * fc * gk
             b[:, :kk] += fp * bk
             b[:, kk:] += fc * bk
-        m += np.eye(2 * kk) / sig**2
-        c = np.linalg.cholesky(m)
-        z = np.linalg.solve(c, b[..., None])[..., 0]
-        ll[nov] = (base + 0.5 * np.sum(z**2, axis=1)
-                   - np.sum(np.log(np.diagonal(c, axis1=1, axis2=2)), axis=1)
-                   - 2 * kk * math.log(sig))
-    return ll
+        rho2[nov], rank[nov] = projection_snr2(m, b)
+    return rho2, rank
 
 
 def _check_segment_modes(series: DetectorSeries, noise: ToeplitzNoise, f: np.ndarray,
@@ -635,7 +687,7 @@ def overtone_evidence(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
                       t0_gps: float, mass_range: tuple[float, float],
                       spin_range: tuple[float, float], max_overtones: int = 2,
                       grid: tuple[int, int] = (20, 20), threshold: float = 0.5,
-                      amp_sigma: float | dict | None = None, amp_prior_snr: float = 10.0,
+                      snr_prior: tuple[float, float] = SNR_PRIOR,
                       modes: ModeFunc | None = None, refine: int = 2,
                       antenna: Mapping[str, tuple[float, float]] | None = None) -> dict:
     """Compact overtone-count evidence for one candidate (for campaigns).
@@ -649,56 +701,18 @@ def overtone_evidence(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
         ``log10_bayes`` ({"N:N-1": float}), ``log_evidence`` (list, natural
         log), ``supported_overtones`` (int, see
         :meth:`RemnantPosterior.supported_overtones`), ``mass``/``spin``
-        (median and 90% interval for the supported N), ``amp_sigma`` and
-        ``warnings``.
+        (median and 90% interval for the supported N), ``averaged`` (the
+        remnant averaged over N, :meth:`RemnantPosterior.averaged`),
+        ``snr_prior`` and ``warnings``.
 
     Notes
     -----
-    Calibration (measured; ``tests/test_analysis_calibration.py``).  A
-    Bayes factor above ``threshold`` is not a false-alarm probability.  For
-    data holding exactly N = 1 overtone the rate of ``log10 B(2:1) > 0.5`` is:
-
-    * 1.1% (9/800; 90% interval 0.6-1.9%) for single-detector exact-model
-      (2,2,0)+(2,2,1) injections at SNR 30, overtone ratio U(0.5, 1.5);
-    * 0.7% (2/300) for two-detector Kerr injections at network SNR 35
-      (prograde + mirror modes, spheroidal harmonics, isotropic inclination,
-      band-passed strain, independent amplitudes), overtone ratio
-      U(0.5, 1.5); 0.3% (1/300) with the coherent network; 1.0% (3/300) for
-      ratio U(1, 2), of which 3% (3/93) among the injections whose first
-      overtone is itself clearly detected (log10 B(1:0) > 2);
-    * about 2% (2/95) at network SNR 100, ratio U(1, 2).
-
-    The noise-free value of ``log10 B(2:1)`` for such data is only -0.2 to
-    -0.8: the (2,2,2) amplitude is nearly degenerate with (2,2,0) and (2,2,1)
-    over a few samples, so its Occam penalty is small and noise of order one
-    in ln B crosses a threshold of 0.5 now and then.  What is *not* a cause:
-    mirror modes and spheroidal-harmonic mixing (in one detector a (2,2,n)
-    mirror mode oscillates at the same f and tau, so the per-detector model
-    represents a non-precessing Kerr ringdown exactly; the coherent model's
-    free h+/hx amplitudes do too), the band-pass of the abrupt start (residual
-    chi^2 ~ 1e-6 SNR^2 at the true remnant), or the grid (15 x 15 and 30 x 30
-    agree to 0.05 in log10 B).
-
-    The amplitude prior width matters, and is the one systematic found.  The
-    default width scales with the SNR of the fundamental mode alone; when a
-    loud overtone interferes destructively with the fundamental (overtone
-    about twice the fundamental at the start, relative phase near pi) that
-    SNR is small, the prior shrinks the N-overtone amplitudes, and N+1
-    nearly degenerate modes win by relieving the shrinkage: noise-free exact
-    N = 1 data then give log10 B(2:1) from about 0 up to +0.6 (1 of 67
-    one-overtone injections of ``injections/overtones.toml``; in noise that
-    injection exceeded 0.5 in 73% of draws).  The analysis detects this and
-    adds a warning ("... prior widths ...") when, at the likelihood peak of
-    some N < N_max, a posterior-mode amplitude exceeds
-    :data:`SHRINKAGE_LIMIT` prior widths; rerunning with a wider
-    ``amp_sigma`` (ten times) restores the Occam penalty (log10 B(2:1)
-    about -1.8).  Noise-free on that campaign's injections the warning fired
-    for 0 of 67 pure, 2 of 67 one-overtone and 4 of 66 two-overtone signals.
-    A fixed wide prior is not a free fix: three times the injected (2,2,0)
-    strain amplitude gave 0/300 false N = 2 supports at SNR 35 but cut the
-    fraction of one-overtone injections supporting N >= 1 from 49% to 24%.
-    Higher (l, m) modes such as (3,3,0) or (2,1,0) are *not* in the model;
-    data containing them can favour extra (2,2,n) terms systematically.
+    A Bayes factor above ``threshold`` is not a false-alarm probability.  The
+    rates at which the default threshold claims an overtone the data do not
+    hold, and misses one they do, are measured over the prior by
+    ``scripts/calibrate.py`` (README, "Overtone analysis"); so is the coverage
+    of the intervals.  Higher (l, m) modes such as (3,3,0) or (2,1,0) are not
+    in the model; data containing them can favour extra (2,2,n) terms.
 
     Examples
     --------
@@ -713,10 +727,10 @@ def overtone_evidence(data: Sequence[DetectorSeries], noises: Sequence[ToeplitzN
     0
     """
     post = remnant_posterior(data, noises, t0_gps, mass_range, spin_range, max_overtones, grid,
-                             amp_sigma, amp_prior_snr, modes, refine=refine, antenna=antenna)
+                             snr_prior, modes, refine=refine, antenna=antenna)
     nsup = post.supported_overtones(threshold)
     summ = post.summary(nsup)
     return {"log10_bayes": post.log10_bayes, "log_evidence": post.log_evidence.tolist(),
             "supported_overtones": nsup, "mass": summ["mass"], "spin": summ["spin"],
-            "amp_sigma": post.amp_sigma,
+            "averaged": post.averaged(), "snr_prior": list(post.snr_prior),
             "warnings": list(post.warnings) + post.resolution_warnings(nsup)}

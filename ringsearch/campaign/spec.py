@@ -64,6 +64,7 @@ Example campaign file::
     enabled = true
     max_overtones = 2
     log10_bayes_threshold = 0.5
+    snr_prior = [4.0, 200.0]  # prior on the expected network SNR (amplitude scale)
 
 A listed campaign replaces the drawn ``[injections]`` table by::
 
@@ -621,6 +622,8 @@ def _read_overtones(t: _Table, origin: str, search: dict) -> dict | None:
     without the table keeps the configuration hash it always had.  The keys
     are validated even when disabled.
     """
+    from ringsearch.analysis.posterior import SNR_PRIOR
+
     ev: dict[str, Any] = {"enabled": t.boolean("enabled", False)}
     ev["max_overtones"] = t.number("max_overtones", 2, lo=1, hi=7, integer=True)
     ev["log10_bayes_threshold"] = t.number("log10_bayes_threshold",
@@ -644,7 +647,11 @@ def _read_overtones(t: _Table, origin: str, search: dict) -> dict | None:
                              f"when the search box is a single point).")
     ev["start_offset_ms"] = t.number("start_offset_ms", 0.0, lo=-100, hi=100)
     ev["duration_s"] = t.number("duration_s", None, lo=0.005, hi=4.0)
-    ev["amplitude_prior_snr"] = t.number("amplitude_prior_snr", 10.0, lo=0, lo_open=True)
+    ev["snr_prior"] = _range(t.raw("snr_prior", list(SNR_PRIOR)), "overtones.snr_prior", origin,
+                             lo=0, lo_open=True)
+    if ev["snr_prior"][0] >= ev["snr_prior"][1]:
+        raise InputError(f"'overtones.snr_prior' in {origin} must be a range with low below "
+                         f"high, not {ev['snr_prior']!r}.")
     ev["network"] = t.string("network", "independent", choices=("independent", "coherent"))
     t.finish()
     return ev if ev["enabled"] else None

@@ -237,7 +237,7 @@ def overtone_evidence_rows(config: dict, sources: list, strains: dict, psds: dic
                 grid=tuple(ov["grid"]), duration=ov["duration_s"],
                 f_low=config["data"]["f_low"], f_high=f_high,
                 threshold=ov["log10_bayes_threshold"],
-                amp_prior_snr=ov["amplitude_prior_snr"], time_shifts=shifts, cache=cache,
+                snr_prior=tuple(ov["snr_prior"]), time_shifts=shifts, cache=cache,
                 antenna=antenna)
         except InputError as exc:
             row["evidence_note"] = f"not analysed: {exc}"
