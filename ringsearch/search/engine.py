@@ -24,6 +24,10 @@ series or already conditioned data) through these steps and returns a
    nothing is louder; :mod:`ringsearch.search.significance`).  With one
    detector, the FAR comes from the data's own other triggers.
 
+Strain spanning more than about two ``stretch_s`` (512 s) goes through the
+same steps stretch by stretch (:mod:`ringsearch.search.stretches`), so memory
+does not grow with the data; each stretch has its own PSD and time slides.
+
 Campaigns call the same :meth:`Search.run` on each injected chunk and only add
 what is theirs (drawing and injecting signals, matching injections to the
 candidates, pooling backgrounds), so their efficiency describes this search.
@@ -812,6 +816,9 @@ class Search:
         Returns
         -------
         SearchResult
+            For strain longer than about two ``config.stretch_s``, searched
+            stretch by stretch (:mod:`ringsearch.search.stretches`); conditioned
+            data and ``at=`` are always searched whole.
 
         Examples
         --------
