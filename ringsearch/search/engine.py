@@ -201,8 +201,9 @@ class SearchConfig:
         domain = check_domain(self.veto_domain)
         if self.stretch_s is not None and not (math.isfinite(float(self.stretch_s)) and
                                                float(self.stretch_s) >= MIN_STRETCH_S):
-            raise InputError(f"stretch length must be at least {MIN_STRETCH_S:g} s (or None for "
-                             f"the whole series at once), got {self.stretch_s}.")
+            raise InputError(f"stretch length must be at least {MIN_STRETCH_S:g} s "
+                             "(stretch_s=None or --stretch 0 searches the whole series at "
+                             f"once), got {self.stretch_s}.")
         if not (math.isfinite(float(self.psd_seglen_s)) and self.psd_seglen_s > 0):
             raise InputError(f"PSD segment length must be a positive number of seconds, "
                              f"got {self.psd_seglen_s}.")
